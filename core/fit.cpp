@@ -1,0 +1,366 @@
+#include "fit.hpp"
+
+#include <algorithm>
+#include <cmath>
+#include <limits>
+#include <numeric>
+
+#include "error.hpp"
+
+namespace groupfit {
+
+namespace {
+constexpr double nan = std::numeric_limits<double>::quiet_NaN();
+
+std::string level_list(const std::vector<std::string>& labels) {
+    std::string s;
+    for (std::size_t i = 0; i < labels.size() && i < 20; ++i) s += (i ? ", " : "") + labels[i];
+    if (labels.size() > 20) s += ", ... (" + std::to_string(labels.size()) + " levels)";
+    return s;
+}
+
+/// A small square-root-free factor over k columns.
+struct factor {
+    int k;
+    std::vector<double> d, rbar;
+    explicit factor(int k_) : k(k_), d(k_, 0.0), rbar(k_ * (k_ - 1) / 2, 0.0) {}
+    double include(std::vector<double>& row, double w, int first = 0) {
+        return detail::include_row(k, d.data(), rbar.data(), row.data(), w, first);
+    }
+    double r(int i, int j) const {
+        return i == j ? 1.0 : j > i ? rbar[detail::rbar_index(k, i, j)] : 0.0;
+    }
+};
+}  // namespace
+
+fit::fit(const summary& s, const options& o) : s_(&s), opt_(o), p_(s.covariates()) {
+    if (s.cells() == 0) throw error("the model has no rows");
+    // Names: the grouping, then the covariates.
+    if (o.names.size() > static_cast<std::size_t>(p_) + 1)
+        throw error("options: names lists " + std::to_string(o.names.size()) +
+                    " names but the model has a grouping and " + std::to_string(p_) +
+                    " covariate(s)");
+    names_.push_back("group");
+    for (int j = 0; j < p_; ++j) names_.push_back("x" + std::to_string(j + 1));
+    for (std::size_t i = 0; i < o.names.size(); ++i) names_[i] = o.names[i];
+
+    // Level order: ascending, with the levels named by order= first.
+    std::vector<std::size_t> asc(s.cells());
+    std::iota(asc.begin(), asc.end(), 0);
+    std::sort(asc.begin(), asc.end(),
+              [&](std::size_t a, std::size_t b) { return s.cell_level(a) < s.cell_level(b); });
+    std::vector<std::string> asc_labels;
+    for (auto c : asc) asc_labels.push_back(s.cell_level(c).label());
+    std::vector<bool> used(asc.size(), false);
+    for (const auto& name : o.order) {
+        auto it = std::find(asc_labels.begin(), asc_labels.end(), name);
+        if (it == asc_labels.end())
+            throw error("options: order names an unknown level '" + name +
+                        "' (levels: " + level_list(asc_labels) + ")");
+        std::size_t i = it - asc_labels.begin();
+        if (used[i]) throw error("options: order names level '" + name + "' twice");
+        used[i] = true;
+        cell_.push_back(asc[i]);
+        labels_.push_back(name);
+    }
+    for (std::size_t i = 0; i < asc.size(); ++i)
+        if (!used[i]) cell_.push_back(asc[i]), labels_.push_back(asc_labels[i]);
+
+    const std::size_t L = cell_.size();
+    const int k = p_ + 2;
+    w_.resize(L);
+    for (std::size_t i = 0; i < L; ++i) {
+        w_[i] = s.cell_d(cell_[i])[0];
+        n_ += s.cell_rows(cell_[i]);
+        wsum_ += w_[i];
+    }
+
+    // Shifted coordinates: origin = weighted grand mean of each column, summed
+    // relative to the first cell's origin so that large common offsets cancel
+    // exactly before any rounding.
+    ox_.resize(p_);
+    xb_.resize(L, p_);
+    yb_.resize(L);
+    for (int j = 0; j <= p_; ++j) {
+        const double base = s.cell_origin(cell_[0])[j];
+        double acc = 0.0;
+        for (std::size_t i = 0; i < L; ++i) {
+            const std::size_t c = cell_[i];
+            acc += w_[i] * ((s.cell_origin(c)[j] - base) + s.cell_rbar(c)[detail::rbar_index(k, 0, j + 1)]);
+        }
+        const double origin = base + acc / wsum_;
+        for (std::size_t i = 0; i < L; ++i) {
+            const std::size_t c = cell_[i];
+            const double v =
+                (s.cell_origin(c)[j] - origin) + s.cell_rbar(c)[detail::rbar_index(k, 0, j + 1)];
+            if (j < p_) xb_(i, j) = v; else yb_[i] = v;
+        }
+        if (j < p_) ox_[j] = origin; else oy_ = origin;
+    }
+
+    // Pooled within-cell factor over [x, y].
+    factor within(p_ + 1);
+    std::vector<double> row(p_ + 1);
+    for (std::size_t i = 0; i < L; ++i) {
+        const std::size_t c = cell_[i];
+        const double* d = s.cell_d(c);
+        const double* rb = s.cell_rbar(c);
+        for (int r = 1; r < k; ++r) {
+            if (d[r] == 0.0) continue;
+            for (int j = 1; j < k; ++j)
+                row[j - 1] = j < r ? 0.0 : j == r ? 1.0 : rb[detail::rbar_index(k, r, j)];
+            within.include(row, d[r], r - 1);
+        }
+    }
+    Eigen::MatrixXd m = Eigen::MatrixXd::Zero(p_ + 1, p_ + 1);
+    for (int i = 0; i <= p_; ++i)
+        for (int j = i; j <= p_; ++j) m(i, j) = std::sqrt(within.d[i]) * within.r(i, j);
+    within_ = m;
+
+    // In-order Householder pass with aliasing (the factor is already upper
+    // triangular, but aliased columns shift the rows that later columns use).
+    alias_.assign(p_, false);
+    alias_reason_.assign(p_, std::string());
+    alias_delta_.assign(p_, Eigen::VectorXd());
+    beta_ = Eigen::VectorXd::Constant(p_, nan);
+    int rank = 0;
+    for (int j = 0; j < p_; ++j) {
+        const double colnorm = m.col(j).norm();
+        const double rest = m.col(j).segment(rank, p_ + 1 - rank).norm();
+        if (colnorm == 0.0 || rest <= alias_tolerance * colnorm) {
+            alias_[j] = true;
+            // Coefficients of this column on the kept columns before it.
+            Eigen::VectorXd rhs = m.col(j).head(rank);
+            Eigen::MatrixXd rk(rank, rank);
+            for (int a = 0; a < rank; ++a)
+                for (int b = 0; b < rank; ++b) rk(a, b) = m(a, kept_[b]);
+            alias_delta_[j] = rank ? Eigen::VectorXd(rk.triangularView<Eigen::Upper>().solve(rhs))
+                                   : Eigen::VectorXd();
+            std::string with;
+            for (int b = 0; b < rank; ++b)
+                if (std::fabs(alias_delta_[j][b]) > 0) with += ", " + names_[kept_[b] + 1];
+            alias_reason_[j] = colnorm == 0.0
+                                   ? "aliased: " + names_[j + 1] +
+                                         " does not vary within any level of " + names_[0]
+                                   : "aliased: " + names_[j + 1] +
+                                         " is a linear combination of the grouping" + with;
+            continue;
+        }
+        // Householder reflection on rows rank..p of columns j..p.
+        Eigen::VectorXd v = m.col(j).segment(rank, p_ + 1 - rank);
+        const double alpha = v[0] > 0 ? -rest : rest;
+        v[0] -= alpha;
+        const double vnorm2 = v.squaredNorm();
+        if (vnorm2 > 0)
+            for (int c = j; c <= p_; ++c) {
+                auto col = m.col(c).segment(rank, p_ + 1 - rank);
+                col -= v * (2.0 * v.dot(col) / vnorm2);
+            }
+        m.col(j).segment(rank + 1, p_ - rank).setZero();
+        m(rank, j) = alpha;
+        kept_.push_back(j);
+        ++rank;
+    }
+    r_.resize(rank, rank);
+    qty_.resize(rank);
+    for (int a = 0; a < rank; ++a) {
+        for (int b = 0; b < rank; ++b) r_(a, b) = m(a, kept_[b]);
+        qty_[a] = m(a, p_);
+    }
+    sse_ = m.col(p_).segment(rank, p_ + 1 - rank).squaredNorm();
+    if (rank) {
+        Eigen::VectorXd b = r_.triangularView<Eigen::Upper>().solve(qty_);
+        for (int a = 0; a < rank; ++a) beta_[kept_[a]] = b[a];
+    }
+    mu_ = yb_;
+    for (int a = 0; a < rank; ++a) mu_ -= xb_.col(kept_[a]) * beta_[kept_[a]];
+
+    // Grouping sums of squares as sums of non-negative increments (AS 75 keeps
+    // the residual sum of squares current as each row is included).
+    {
+        factor between(2);
+        std::vector<double> r2(2);
+        for (std::size_t i = 0; i < L; ++i) {
+            r2 = {1.0, yb_[i]};
+            ss_group_seq_ += between.include(r2, w_[i]);
+        }
+    }
+    {
+        factor adj(rank + 2);  // [1, kept x, y]
+        std::vector<double> r3(rank + 2);
+        for (int a = 0; a <= rank; ++a) {  // the within factor reduced to kept columns
+            r3[0] = 0.0;
+            for (int b = 0; b < rank; ++b) r3[b + 1] = a < rank ? r_(a, b) : 0.0;
+            r3[rank + 1] = a < rank ? qty_[a] : std::sqrt(sse_);
+            adj.include(r3, 1.0, 1);
+        }
+        for (std::size_t i = 0; i < L; ++i) {
+            r3[0] = 1.0;
+            for (int b = 0; b < rank; ++b) r3[b + 1] = xb_(i, kept_[b]);
+            r3[rank + 1] = yb_[i];
+            ss_group_adj_ += adj.include(r3, w_[i]);
+        }
+    }
+}
+
+double fit::level_sd(std::size_t i) const {
+    const std::size_t c = cell_[i];
+    const std::int64_t n = s_->cell_rows(c);
+    if (n < 2) return nan;
+    const int k = p_ + 2;
+    const double* d = s_->cell_d(c);
+    const double* rb = s_->cell_rbar(c);
+    double ss = 0.0;  // the response column of R below its first row
+    for (int r = 1; r < k; ++r) {
+        const double v = r == k - 1 ? 1.0 : rb[detail::rbar_index(k, r, k - 1)];
+        ss += d[r] * v * v;
+    }
+    // Weighted SD: sum w (y - ybar_w)^2 / (n - 1) with n the row count.
+    return std::sqrt(ss / double(n - 1));
+}
+
+double fit::sigma2() const {
+    const double df = df_resid();
+    return df > 0 ? sse_ / df : nan;
+}
+
+std::size_t fit::find_level(const std::string& label, const char* option) const {
+    for (std::size_t i = 0; i < labels_.size(); ++i)
+        if (labels_[i] == label) return i;
+    throw error(std::string("options: ") + option + " names an unknown level '" + label +
+                "' (levels: " + level_list(labels_) + ")");
+}
+
+Eigen::VectorXd fit::d_prime_a(const Eigen::VectorXd& a) const {
+    Eigen::VectorXd u(kept_.size());
+    for (std::size_t b = 0; b < kept_.size(); ++b) u[b] = xb_.col(kept_[b]).dot(a);
+    return u;
+}
+
+double fit::g_quadratic(const Eigen::VectorXd& u) const {
+    if (u.size() == 0) return 0.0;
+    Eigen::VectorXd z = r_.transpose().triangularView<Eigen::Lower>().solve(u);
+    return z.squaredNorm();
+}
+
+estimate fit::evaluate(const linear_function& f) const {
+    estimate e{nan, nan, true};
+    // Estimability: the function must not move along the null direction of any
+    // aliased covariate (beta_j + 1, kept beta - delta_j, mu - gamma_j).
+    for (int j = 0; j < p_; ++j) {
+        if (!alias_[j]) continue;
+        const Eigen::VectorXd& delta = alias_delta_[j];
+        Eigen::VectorXd gamma = xb_.col(j);
+        double scale = std::fabs(f.g[j]);
+        double along = f.g[j];
+        for (std::size_t b = 0; b < kept_.size(); ++b) {
+            if (delta.size() == 0) break;
+            gamma -= xb_.col(kept_[b]) * delta[b];
+            along -= f.g[kept_[b]] * delta[b];
+            scale += std::fabs(f.g[kept_[b]] * delta[b]);
+        }
+        along -= f.a.dot(gamma);
+        scale += f.a.cwiseAbs().dot(gamma.cwiseAbs());
+        if (std::fabs(along) > 1e-9 * scale + 1e-300) {
+            e.estimable = false;
+            return e;
+        }
+    }
+    double v = f.a.dot(mu_) + f.c;
+    Eigen::VectorXd u = d_prime_a(f.a);
+    for (std::size_t b = 0; b < kept_.size(); ++b) {
+        v += f.g[kept_[b]] * beta_[kept_[b]];
+        u[b] -= f.g[kept_[b]];
+    }
+    e.value = v;
+    const double s2 = sigma2();
+    if (!std::isnan(s2)) e.std_error = std::sqrt(s2 * (f.a.cwiseAbs2().cwiseQuotient(w_).sum() + g_quadratic(u)));
+    return e;
+}
+
+double fit::scaled_covariance(const linear_function& f1, const linear_function& f2) const {
+    Eigen::VectorXd u1 = d_prime_a(f1.a), u2 = d_prime_a(f2.a);
+    for (std::size_t b = 0; b < kept_.size(); ++b) {
+        u1[b] -= f1.g[kept_[b]];
+        u2[b] -= f2.g[kept_[b]];
+    }
+    double v = f1.a.cwiseProduct(f2.a).cwiseQuotient(w_).sum();
+    if (!kept_.empty()) {
+        Eigen::VectorXd z1 = r_.transpose().triangularView<Eigen::Lower>().solve(u1);
+        Eigen::VectorXd z2 = r_.transpose().triangularView<Eigen::Lower>().solve(u2);
+        v += z1.dot(z2);
+    }
+    return v;
+}
+
+linear_function fit::level_combination(const Eigen::VectorXd& k, const Eigen::VectorXd& at) const {
+    linear_function f;
+    f.a = k;
+    const double total = k.sum();
+    f.g = total * (at - ox_);
+    f.c = total * oy_;
+    return f;
+}
+
+linear_function fit::slope_function(int j) const {
+    linear_function f;
+    f.a = Eigen::VectorXd::Zero(levels());
+    f.g = Eigen::VectorXd::Zero(p_);
+    f.g[j] = 1.0;
+    return f;
+}
+
+double fit::ss_covariate_sequential(int j) const {
+    for (std::size_t b = 0; b < kept_.size(); ++b)
+        if (kept_[b] == j) return qty_[b] * qty_[b];
+    return 0.0;
+}
+
+double fit::ss_covariate_partial(int j) const {
+    for (std::size_t b = 0; b < kept_.size(); ++b)
+        if (kept_[b] == j) {
+            Eigen::VectorXd e = Eigen::VectorXd::Zero(kept_.size());
+            e[b] = 1.0;
+            return beta_[j] * beta_[j] / g_quadratic(e);
+        }
+    return 0.0;
+}
+
+double fit::ss_model() const {
+    return ss_group_seq_ + qty_.squaredNorm();
+}
+
+double fit::ss_total() const { return ss_model() + sse_; }
+
+double fit::condition_number() const {
+    for (int j = 0; j < p_; ++j)
+        if (alias_[j]) return nan;
+    const Eigen::Index L = static_cast<Eigen::Index>(levels());
+    if (p_ == 0) return 1.0;
+    // Raw covariate columns: between part sqrt(W) * xbar (raw) and within part.
+    Eigen::MatrixXd b(L, p_);
+    Eigen::MatrixXd wx = within_.topLeftCorner(p_, p_);
+    for (int j = 0; j < p_; ++j) {
+        for (Eigen::Index i = 0; i < L; ++i) b(i, j) = std::sqrt(w_[i]) * (xb_(i, j) + ox_[j]);
+        const double nrm = std::sqrt(b.col(j).squaredNorm() + wx.col(j).squaredNorm());
+        if (nrm == 0.0) return nan;
+        b.col(j) /= nrm;
+        wx.col(j) /= nrm;
+    }
+    // The indicator columns are orthonormal after scaling; in the basis of b's
+    // column space the matrix reduces to [[I, R_b], [0, Wx]], and every other
+    // singular value is exactly 1.
+    Eigen::HouseholderQR<Eigen::MatrixXd> qr(b);
+    const Eigen::Index mm = std::min<Eigen::Index>(L, p_);
+    Eigen::MatrixXd rb = qr.matrixQR().topRows(mm).triangularView<Eigen::Upper>();
+    Eigen::MatrixXd n = Eigen::MatrixXd::Zero(mm + p_, mm + p_);
+    n.topLeftCorner(mm, mm).setIdentity();
+    n.topRightCorner(mm, p_) = rb;
+    n.bottomRightCorner(p_, p_) = wx;
+    Eigen::JacobiSVD<Eigen::MatrixXd> svd(n);
+    double smax = svd.singularValues().maxCoeff(), smin = svd.singularValues().minCoeff();
+    if (L > mm) smax = std::max(smax, 1.0), smin = std::min(smin, 1.0);
+    return smin > 0 ? smax / smin : nan;
+}
+
+}  // namespace groupfit

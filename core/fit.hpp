@@ -1,0 +1,138 @@
+// groupfit core: the least-squares fit of a one-factor model with common slopes,
+//   y = mu_g + x'beta + e,   e ~ N(0, sigma^2 / w),
+// computed from a summary without revisiting rows.
+//
+// How: the rows of every cell's factor except the first (the within-cell part)
+// are merged into one pooled factor over [x, y]; an in-order Householder pass
+// over that small factor reveals the rank (a covariate whose remaining norm is
+// below `alias_tolerance` of its own norm is aliased and fixed at zero) and gives
+// beta and the residual sum of squares. The cell means then give
+// mu_g = ybar_g - xbar_g'beta. All of this is done in shifted coordinates (every
+// column minus its weighted grand mean) and only the reports move back to the
+// raw scale. Cost: O(cells x (p+2)^2 + p^3), independent of the number of rows.
+//
+// Every reported number is a linear function a'mu + g'beta + c of the
+// parameters; `evaluate` returns its value and standard error, with
+// Var = sigma^2 [ sum a_g^2 / W_g + (D'a - g)' (R'R)^-1 (D'a - g) ],
+// where W_g is the cell's weight sum and D holds the cells' covariate means.
+#pragma once
+
+#include <Eigen/Dense>
+#include <cstdint>
+#include <string>
+#include <vector>
+
+#include "options.hpp"
+#include "summary.hpp"
+
+namespace groupfit {
+
+/// Relative norm below which a covariate column counts as aliased.
+inline constexpr double alias_tolerance = 1e-10;
+
+/// A linear function a'mu + g'beta + c of the parameters (levels in report
+/// order; g over all covariates, raw scale handled by the caller through c and g).
+struct linear_function {
+    Eigen::VectorXd a;
+    Eigen::VectorXd g;
+    double c = 0.0;
+};
+
+struct estimate {
+    double value;
+    double std_error;   // NaN when there are no residual degrees of freedom
+    bool estimable = true;
+};
+
+class fit {
+public:
+    fit(const summary& s, const options& o);
+
+    // --- the levels, in report order (ascending, or as set by order=)
+    std::size_t levels() const { return cell_.size(); }
+    const level& level_at(std::size_t i) const { return s_->cell_level(cell_[i]); }
+    std::string level_label(std::size_t i) const { return labels_[i]; }
+    /// Report index of a level named in an option; throws naming the option.
+    std::size_t find_level(const std::string& label, const char* option) const;
+    std::int64_t level_rows(std::size_t i) const { return s_->cell_rows(cell_[i]); }
+    double level_weight(std::size_t i) const { return w_[i]; }
+    /// Observed (weighted) mean of the response in level i, raw scale.
+    double level_mean(std::size_t i) const { return s_->cell_mean(cell_[i], p_); }
+    /// Observed standard deviation of the response in level i (NaN for one row).
+    double level_sd(std::size_t i) const;
+    /// Observed mean of covariate j over all rows used (weighted), raw scale.
+    double covariate_mean(int j) const { return ox_[j]; }
+
+    // --- names
+    const std::string& group_name() const { return names_[0]; }
+    const std::string& covariate_name(int j) const { return names_[j + 1]; }
+    int covariates() const { return p_; }
+    bool weighted() const { return s_->weighted(); }
+
+    // --- fit results
+    std::int64_t rows() const { return n_; }
+    double weight_sum() const { return wsum_; }
+    int rank() const { return static_cast<int>(levels()) + static_cast<int>(kept_.size()); }
+    int parameters() const { return static_cast<int>(levels()) + p_; }
+    double df_resid() const { return double(n_) - rank(); }
+    double sse() const { return sse_; }
+    double sigma2() const;  // NaN without residual degrees of freedom
+    bool aliased(int j) const { return alias_[j]; }
+    const std::string& alias_reason(int j) const { return alias_reason_[j]; }
+    double slope(int j) const { return beta_[j]; }  // NaN when aliased
+
+    estimate evaluate(const linear_function& f) const;
+    /// Covariance of two linear functions divided by sigma^2.
+    double scaled_covariance(const linear_function& f1, const linear_function& f2) const;
+
+    /// A linear function of a raw-scale quantity: sum_i k_i * (mean of level i at
+    /// covariates = at), with `at` on the raw scale.
+    linear_function level_combination(const Eigen::VectorXd& k, const Eigen::VectorXd& at) const;
+    linear_function slope_function(int j) const;
+
+    // --- sums of squares (all non-negative sums, no differences of totals)
+    double ss_group_unadjusted() const { return ss_group_seq_; }
+    double ss_group_adjusted() const { return ss_group_adj_; }
+    double ss_covariate_sequential(int j) const;  // after the grouping and earlier covariates
+    double ss_covariate_partial(int j) const;     // after the grouping and all other covariates
+    double ss_total() const;                       // corrected for the weighted mean
+    double ss_model() const;
+
+    /// 2-norm condition number of the model matrix (level indicators and raw
+    /// covariates, columns scaled to unit length); NaN when rank-deficient.
+    double condition_number() const;
+
+    const options& opts() const { return opt_; }
+
+private:
+    Eigen::VectorXd d_prime_a(const Eigen::VectorXd& a) const;  // over kept covariates
+    double g_quadratic(const Eigen::VectorXd& u) const;          // u' (R'R)^-1 u
+
+    const summary* s_;
+    options opt_;
+    int p_;
+    std::vector<std::size_t> cell_;      // report order -> summary cell
+    std::vector<std::string> labels_;
+    std::vector<std::string> names_;
+    Eigen::VectorXd w_;                  // weight sum per level
+    Eigen::MatrixXd xb_;                 // L x p covariate means, shifted
+    Eigen::VectorXd yb_;                 // response means, shifted
+    Eigen::VectorXd ox_;                 // covariate origins (weighted grand means)
+    double oy_ = 0;
+    std::int64_t n_ = 0;
+    double wsum_ = 0;
+
+    std::vector<int> kept_;              // kept covariate indices, in order
+    std::vector<bool> alias_;
+    std::vector<std::string> alias_reason_;
+    std::vector<Eigen::VectorXd> alias_delta_;   // per covariate: coefficients on kept
+    Eigen::MatrixXd r_;                  // kept x kept upper triangular
+    Eigen::VectorXd qty_;                // kept
+    Eigen::VectorXd beta_;               // p, NaN where aliased
+    Eigen::VectorXd mu_;                 // L, shifted scale at x = origin
+    double sse_ = 0;
+    double ss_group_seq_ = 0, ss_group_adj_ = 0;
+    Eigen::MatrixXd within_;             // the pooled within factor R (p+1 square)
+};
+
+}  // namespace groupfit

@@ -1,0 +1,175 @@
+#include "options.hpp"
+
+#include <cctype>
+#include <cmath>
+#include <cstdlib>
+
+#include "error.hpp"
+
+namespace groupfit {
+
+const char* coding_name(coding_kind k) {
+    switch (k) {
+    case coding_kind::dummy: return "dummy";
+    case coding_kind::effect: return "effect";
+    case coding_kind::weighted_effect: return "weighted_effect";
+    case coding_kind::helmert: return "helmert";
+    case coding_kind::reverse_helmert: return "reverse_helmert";
+    case coding_kind::successive: return "successive";
+    case coding_kind::polynomial: return "polynomial";
+    case coding_kind::custom: return "custom";
+    }
+    return "?";
+}
+
+const char* option_keys() { return "coding, base, order, conf, names, spacing, custom, ss"; }
+
+namespace detail {
+
+static std::string_view trim(std::string_view s) {
+    while (!s.empty() && std::isspace(static_cast<unsigned char>(s.front()))) s.remove_prefix(1);
+    while (!s.empty() && std::isspace(static_cast<unsigned char>(s.back()))) s.remove_suffix(1);
+    return s;
+}
+
+std::vector<std::string> split_list(std::string_view text, char sep, bool unquote) {
+    std::vector<std::string> out;
+    std::string cur;
+    bool quoted = false, was_quoted = false;
+    auto finish = [&] {
+        std::string item = was_quoted ? cur : std::string(trim(cur));
+        out.push_back(std::move(item));
+        cur.clear();
+        was_quoted = false;
+    };
+    for (std::size_t i = 0; i < text.size(); ++i) {
+        char c = text[i];
+        if (quoted) {
+            if (c == '"') {
+                if (i + 1 < text.size() && text[i + 1] == '"') {
+                    cur += '"';
+                    if (!unquote) cur += '"';
+                    ++i;
+                } else {
+                    quoted = false;
+                    if (!unquote) cur += c;
+                }
+            } else {
+                cur += c;
+            }
+        } else if (c == '"' && trim(cur).empty()) {
+            quoted = true;
+            if (unquote) {
+                cur.clear();
+                was_quoted = true;
+            } else {
+                cur += c;
+            }
+        } else if (c == sep) {
+            finish();
+        } else if (was_quoted) {
+            if (!std::isspace(static_cast<unsigned char>(c)))
+                throw error("options: unexpected text after a closing quote near '" +
+                            std::string(text.substr(i, 20)) + "'");
+        } else {
+            cur += c;
+        }
+    }
+    if (quoted) throw error("options: a double quote is not closed");
+    finish();
+    return out;
+}
+
+}  // namespace detail
+
+static double parse_number(std::string_view key, const std::string& v) {
+    const char* b = v.c_str();
+    char* e = nullptr;
+    double x = std::strtod(b, &e);
+    if (v.empty() || *e != '\0' || !std::isfinite(x))
+        throw error("options: " + std::string(key) + " must be a number, not '" + v + "'");
+    return x;
+}
+
+options parse_options(std::string_view text) {
+    options o;
+    std::vector<std::string> seen;
+    for (const std::string& item : detail::split_list(text, ';', false)) {
+        if (item.empty()) continue;
+        auto eq = item.find('=');
+        if (eq == std::string::npos)
+            throw error("options: '" + item + "' is not key=value (keys: " + option_keys() + ")");
+        std::string key(detail::trim(std::string_view(item).substr(0, eq)));
+        for (auto& c : key) c = static_cast<char>(std::tolower(static_cast<unsigned char>(c)));
+        std::string raw(detail::trim(std::string_view(item).substr(eq + 1)));
+        for (const auto& s : seen)
+            if (s == key) throw error("options: " + key + " is given twice");
+        seen.push_back(key);
+        auto single = [&] {
+            auto v = detail::split_list(raw, '\0', true);
+            return v.empty() ? std::string() : v[0];
+        };
+        if (key == "coding") {
+            std::string v = single();
+            static const coding_kind all[] = {
+                coding_kind::dummy,           coding_kind::effect,     coding_kind::weighted_effect,
+                coding_kind::helmert,         coding_kind::reverse_helmert,
+                coding_kind::successive,      coding_kind::polynomial, coding_kind::custom};
+            bool ok = false;
+            for (auto k : all)
+                if (v == coding_name(k)) o.coding = k, ok = true;
+            if (!ok)
+                throw error("options: coding must be one of dummy, effect, weighted_effect, "
+                            "helmert, reverse_helmert, successive, polynomial, custom (not '" +
+                            v + "')");
+        } else if (key == "base") {
+            o.base = single();
+            o.has_base = true;
+        } else if (key == "order") {
+            o.order = detail::split_list(raw, ',', true);
+            for (const auto& l : o.order)
+                if (l.empty()) throw error("options: order has an empty level name");
+        } else if (key == "conf") {
+            o.conf = parse_number(key, single());
+            if (!(o.conf > 0 && o.conf < 1))
+                throw error("options: conf must be between 0 and 1, for example 0.95 (not '" +
+                            raw + "')");
+        } else if (key == "names") {
+            o.names = detail::split_list(raw, ',', true);
+            for (const auto& n : o.names)
+                if (n.empty()) throw error("options: names has an empty name");
+        } else if (key == "spacing") {
+            std::string v = single();
+            if (v == "equal") o.spacing = spacing_kind::equal;
+            else if (v == "values") o.spacing = spacing_kind::values;
+            else throw error("options: spacing must be one of equal, values (not '" + v + "')");
+        } else if (key == "custom") {
+            for (const auto& row : detail::split_list(raw, '/', false)) {
+                std::vector<double> w;
+                for (const auto& x : detail::split_list(row, ',', false))
+                    w.push_back(parse_number("custom", x));
+                o.custom.push_back(std::move(w));
+            }
+        } else if (key == "ss") {
+            std::string v = single();
+            if (v == "1") o.ss = 1;
+            else if (v == "2") o.ss = 2;
+            else if (v == "3") o.ss = 3;
+            else throw error("options: ss must be one of 1, 2, 3 (not '" + v + "')");
+        } else {
+            throw error("options: unknown key '" + key + "' (keys: " + option_keys() + ")");
+        }
+    }
+    if (o.coding == coding_kind::custom && o.custom.empty())
+        throw error("options: coding=custom needs custom=w1,w2,... / w1,w2,... (one row of "
+                    "weights over the levels per coefficient)");
+    if (o.coding != coding_kind::custom && !o.custom.empty())
+        throw error("options: custom= is used only with coding=custom");
+    if (o.has_base && o.coding != coding_kind::dummy && o.coding != coding_kind::effect &&
+        o.coding != coding_kind::weighted_effect)
+        throw error("options: base= applies to the dummy, effect and weighted_effect codings, "
+                    "not to " + std::string(coding_name(o.coding)));
+    return o;
+}
+
+}  // namespace groupfit

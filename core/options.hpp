@@ -1,0 +1,56 @@
+// groupfit core: the options text shared by every report function.
+//
+// Grammar: `key=value` pairs separated by `;`, for example
+//   'coding=effect; base=c003; conf=0.99; names=carrier, distance_km'.
+// Keys are case-insensitive; surrounding spaces are ignored. A list value is
+// separated by `,`; a level label that contains `,` `;` `=` or leading spaces
+// may be written in double quotes ("a;b"), with "" for a quote inside.
+// Unknown keys, repeated keys and bad values are errors that list what is
+// allowed.
+#pragma once
+
+#include <string>
+#include <string_view>
+#include <vector>
+
+namespace groupfit {
+
+enum class coding_kind {
+    dummy,
+    effect,
+    weighted_effect,
+    helmert,
+    reverse_helmert,
+    successive,
+    polynomial,
+    custom,
+};
+const char* coding_name(coding_kind k);
+
+enum class spacing_kind { equal, values };
+
+struct options {
+    coding_kind coding = coding_kind::dummy;
+    std::string base;                          // empty: the coding's default level
+    bool has_base = false;
+    std::vector<std::string> order;            // levels to put first, in this order
+    double conf = 0.95;                        // confidence level of every interval
+    std::vector<std::string> names;            // grouping, then covariates
+    spacing_kind spacing = spacing_kind::equal;
+    std::vector<std::vector<double>> custom;   // rows of custom weights over levels
+    int ss = 3;                                // sums-of-squares type 1, 2 or 3
+};
+
+/// Parses an options text. Throws groupfit::error with a message that names the
+/// key and lists the allowed keys or values.
+options parse_options(std::string_view text);
+
+/// The list of allowed keys, for messages and docs.
+const char* option_keys();
+
+namespace detail {
+/// Splits on `sep` outside double quotes; trims spaces; unquotes items.
+std::vector<std::string> split_list(std::string_view text, char sep, bool unquote);
+}  // namespace detail
+
+}  // namespace groupfit

@@ -1,0 +1,322 @@
+#include "summary.hpp"
+
+#include <bit>
+#include <cmath>
+#include <cstring>
+
+#include "error.hpp"
+
+namespace groupfit {
+
+const char* drop_reason_name(drop_reason r) {
+    switch (r) {
+    case drop_reason::null_response: return "null_response";
+    case drop_reason::null_group: return "null_group";
+    case drop_reason::null_covariate: return "null_covariate";
+    case drop_reason::null_weight: return "null_weight";
+    case drop_reason::zero_weight: return "zero_weight";
+    }
+    return "unknown";
+}
+
+namespace detail {
+
+double include_row(int k, double* d, double* rbar, double* row, double w, int first) {
+    // AS 75 (Gentleman 1974), generalised so that the last column is a column
+    // like the others: its d accumulates the residual sum of squares.
+    for (int i = first; i < k; ++i) {
+        if (w == 0.0) return 0.0;
+        const double xi = row[i];
+        if (xi == 0.0) continue;
+        const double di = d[i];
+        const double dpi = di + w * xi * xi;
+        const double cbar = di / dpi;
+        const double sbar = w * xi / dpi;
+        if (i == k - 1) {
+            d[i] = dpi;
+            return w * xi * xi;
+        }
+        w *= cbar;
+        d[i] = dpi;
+        double* r = rbar + rbar_index(k, i, i + 1);
+        for (int j = i + 1; j < k; ++j, ++r) {
+            const double xj = row[j];
+            row[j] = xj - xi * *r;
+            *r = cbar * *r + sbar * xj;
+        }
+    }
+    return 0.0;
+}
+
+}  // namespace detail
+
+summary::summary(int covariates, bool weighted) : p_(covariates), weighted_(weighted) {
+    scratch_.resize(p_ + 2);
+}
+
+std::int64_t summary::rows_used() const {
+    std::int64_t n = 0;
+    for (auto v : n_) n += v;
+    return n;
+}
+
+std::int64_t summary::dropped_total() const {
+    std::int64_t n = 0;
+    for (auto v : dropped_) n += v;
+    return n;
+}
+
+double summary::cell_mean(std::size_t c, int j) const {
+    return cell_origin(c)[j] + cell_rbar(c)[detail::rbar_index(p_ + 2, 0, j + 1)];
+}
+
+std::size_t summary::add_cell(const level& lv, std::string key, const limits& lim) {
+    if (levels_.size() >= lim.max_levels)
+        throw error("too many levels in the grouping argument: the limit is " +
+                    std::to_string(lim.max_levels) +
+                    " (raise it with groupfit_limit('levels', N))");
+    const std::size_t c = levels_.size();
+    levels_.push_back(lv);
+    n_.push_back(0);
+    log_w_.push_back(0.0);
+    data_.resize(data_.size() + stride(), 0.0);
+    index_.emplace(std::move(key), c);
+    return c;
+}
+
+std::size_t summary::cell_for(const level& lv, const limits& lim) {
+    std::string key = lv.key();
+    if (!levels_.empty() && key == last_key_) return last_cell_;
+    auto it = index_.find(key);
+    std::size_t c = it != index_.end() ? it->second : add_cell(lv, key, lim);
+    last_key_ = std::move(key);
+    last_cell_ = c;
+    return c;
+}
+
+void summary::add_row(std::size_t c, const double* values, double w) {
+    const int k = p_ + 2;
+    double* o = origin(c);
+    if (n_[c] == 0)
+        for (int j = 0; j <= p_; ++j) o[j] = values[j];
+    double* row = scratch_.data();
+    row[0] = 1.0;
+    for (int j = 0; j <= p_; ++j) row[j + 1] = values[j] - o[j];
+    detail::include_row(k, d(c), rbar(c), row, w);
+    ++n_[c];
+    if (weighted_) log_w_[c] += std::log(w);
+}
+
+void summary::merge_cell(std::size_t into, const summary& from, std::size_t c) {
+    const int k = p_ + 2;
+    double* o = origin(into);
+    const double* fo = from.cell_origin(c);
+    const double* fd = from.cell_d(c);
+    const double* fr = from.cell_rbar(c);
+    if (n_[into] == 0)
+        for (int j = 0; j <= p_; ++j) o[j] = fo[j];
+    double* row = scratch_.data();
+    for (int i = 0; i < k; ++i) {
+        if (fd[i] == 0.0) continue;
+        for (int j = 0; j < k; ++j)
+            row[j] = j < i ? 0.0 : j == i ? 1.0 : fr[detail::rbar_index(k, i, j)];
+        if (i == 0)  // the first row carries the means: move them to our origin
+            for (int j = 1; j < k; ++j) row[j] += fo[j - 1] - o[j - 1];
+        detail::include_row(k, d(into), rbar(into), row, fd[i], i);
+    }
+    n_[into] += from.n_[c];
+    log_w_[into] += from.log_w_[c];
+}
+
+void summary::merge(const summary& other, const limits& lim) {
+    if (other.p_ != p_)
+        throw error("models differ in shape: " + std::to_string(p_) + " covariates vs " +
+                    std::to_string(other.p_));
+    if (other.weighted_ != weighted_)
+        throw error("models differ in kind: one is weighted (groupfit_weighted) and one is not");
+    for (std::size_t c = 0; c < other.cells(); ++c) {
+        std::string key = other.levels_[c].key();
+        auto it = index_.find(key);
+        std::size_t into = it != index_.end() ? it->second : add_cell(other.levels_[c], key, lim);
+        merge_cell(into, other, c);
+    }
+    for (int r = 0; r < drop_reason_count; ++r) dropped_[r] += other.dropped_[r];
+}
+
+// ---------------------------------------------------------------------------
+// BLOB format, version 1 (all integers and doubles little-endian):
+//   magic "GFm\x01" (4 bytes) | u16 version | u16 flags (bit 0: weighted)
+//   | u64 total length in bytes, checksum included | u32 p | u32 cells
+//   | u64 dropped[5] | cells... | u64 FNV-1a checksum of all preceding bytes
+// cell: u8 kind | u32 key length | key bytes (int64 or double for numbers)
+//   | u64 rows | f64 log weight sum | f64 origin[p+1] | f64 d[p+2]
+//   | f64 rbar[(p+2)(p+1)/2]
+// ---------------------------------------------------------------------------
+namespace {
+
+constexpr char magic[4] = {'G', 'F', 'm', '\x01'};
+
+std::uint64_t fnv1a(const unsigned char* p, std::size_t n) {
+    std::uint64_t h = 1469598103934665603ull;
+    for (std::size_t i = 0; i < n; ++i) {
+        h ^= p[i];
+        h *= 1099511628211ull;
+    }
+    return h;
+}
+
+template <class T>
+void put(std::string& out, T v) {
+    unsigned char b[sizeof(T)];
+    std::memcpy(b, &v, sizeof(T));
+    if constexpr (std::endian::native == std::endian::big)
+        for (std::size_t i = 0; i < sizeof(T) / 2; ++i) std::swap(b[i], b[sizeof(T) - 1 - i]);
+    out.append(reinterpret_cast<const char*>(b), sizeof(T));
+}
+
+struct reader {
+    const unsigned char* p;
+    std::size_t n, at = 0;
+    void need(std::size_t k) const {
+        if (n - at < k) throw error("not a groupfit model: the BLOB is truncated");
+    }
+    template <class T>
+    T get() {
+        need(sizeof(T));
+        unsigned char b[sizeof(T)];
+        std::memcpy(b, p + at, sizeof(T));
+        if constexpr (std::endian::native == std::endian::big)
+            for (std::size_t i = 0; i < sizeof(T) / 2; ++i) std::swap(b[i], b[sizeof(T) - 1 - i]);
+        T v;
+        std::memcpy(&v, b, sizeof(T));
+        at += sizeof(T);
+        return v;
+    }
+    double finite() {
+        double v = get<double>();
+        if (!std::isfinite(v)) throw error("not a groupfit model: a stored number is not finite");
+        return v;
+    }
+};
+
+}  // namespace
+
+std::string summary::serialize() const {
+    std::string out;
+    const int k = p_ + 2;
+    out.reserve(64 + cells() * (24 + 8 * stride()));
+    out.append(magic, 4);
+    put<std::uint16_t>(out, format_version);
+    put<std::uint16_t>(out, weighted_ ? 1 : 0);
+    put<std::uint64_t>(out, 0);  // length, patched below
+    put<std::uint32_t>(out, static_cast<std::uint32_t>(p_));
+    put<std::uint32_t>(out, static_cast<std::uint32_t>(cells()));
+    for (auto v : dropped_) put<std::uint64_t>(out, static_cast<std::uint64_t>(v));
+    for (std::size_t c = 0; c < cells(); ++c) {
+        const level& lv = levels_[c];
+        put<std::uint8_t>(out, static_cast<std::uint8_t>(lv.kind));
+        if (lv.kind == level_kind::integer) {
+            put<std::uint32_t>(out, 8);
+            put<std::int64_t>(out, lv.i);
+        } else if (lv.kind == level_kind::real) {
+            put<std::uint32_t>(out, 8);
+            put<double>(out, lv.r);
+        } else {
+            put<std::uint32_t>(out, static_cast<std::uint32_t>(lv.bytes.size()));
+            out += lv.bytes;
+        }
+        put<std::uint64_t>(out, static_cast<std::uint64_t>(n_[c]));
+        put<double>(out, log_w_[c]);
+        const double* v = &data_[c * stride()];
+        for (std::size_t j = 0; j < stride(); ++j) put<double>(out, v[j]);
+    }
+    std::string len;
+    put<std::uint64_t>(len, out.size() + 8);
+    out.replace(8, 8, len);
+    put<std::uint64_t>(out, fnv1a(reinterpret_cast<const unsigned char*>(out.data()), out.size()));
+    (void)k;
+    return out;
+}
+
+summary summary::deserialize(std::string_view blob, const limits& lim) {
+    reader r{reinterpret_cast<const unsigned char*>(blob.data()), blob.size()};
+    if (blob.size() < 4 || std::memcmp(blob.data(), magic, 4) != 0)
+        throw error("not a groupfit model: the BLOB does not start with the groupfit header");
+    r.at = 4;
+    const auto version = r.get<std::uint16_t>();
+    if (version > format_version)
+        throw error("the model was written by a newer groupfit (format version " +
+                    std::to_string(version) + "); this build reads versions up to " +
+                    std::to_string(format_version));
+    if (version == 0) throw error("not a groupfit model: format version 0 does not exist");
+    const auto flags = r.get<std::uint16_t>();
+    if (flags > 1) throw error("not a groupfit model: unknown flags in the header");
+    const auto length = r.get<std::uint64_t>();
+    if (length != blob.size())
+        throw error("not a groupfit model: the BLOB is " + std::to_string(blob.size()) +
+                    " bytes but its header says " + std::to_string(length) +
+                    " (truncated or padded)");
+    const std::uint64_t stored =
+        [&] {
+            reader t{r.p, r.n, r.n - 8};
+            return t.get<std::uint64_t>();
+        }();
+    if (fnv1a(r.p, r.n - 8) != stored)
+        throw error("not a groupfit model: the checksum does not match (the BLOB was altered)");
+    r.n -= 8;  // the checksum is not data
+    const auto p = r.get<std::uint32_t>();
+    if (p > static_cast<std::uint32_t>(lim.max_covariates))
+        throw error("not a groupfit model: it has " + std::to_string(p) +
+                    " covariates, more than the limit of " + std::to_string(lim.max_covariates));
+    const auto ncell = r.get<std::uint32_t>();
+    if (ncell > lim.max_levels)
+        throw error("the model has " + std::to_string(ncell) + " levels, more than the limit of " +
+                    std::to_string(lim.max_levels));
+    summary s(static_cast<int>(p), flags & 1);
+    for (auto& v : s.dropped_) {
+        v = static_cast<std::int64_t>(r.get<std::uint64_t>());
+        if (v < 0) throw error("not a groupfit model: a row count is out of range");
+    }
+    const int k = static_cast<int>(p) + 2;
+    for (std::uint32_t c = 0; c < ncell; ++c) {
+        const auto kind = r.get<std::uint8_t>();
+        const auto klen = r.get<std::uint32_t>();
+        level lv;
+        if (kind == 1 || kind == 2) {
+            if (klen != 8) throw error("not a groupfit model: a numeric level has a bad size");
+            if (kind == 1) {
+                lv = level::from_integer(r.get<std::int64_t>());
+            } else {
+                double v = r.finite();
+                lv = level::from_real(v);
+                if (lv.kind != level_kind::real)
+                    throw error("not a groupfit model: a real level holds an integer");
+            }
+        } else if (kind == 3 || kind == 4) {
+            r.need(klen);
+            std::string_view b(reinterpret_cast<const char*>(r.p + r.at), klen);
+            r.at += klen;
+            lv = kind == 3 ? level::from_text(b) : level::from_blob(b);
+        } else {
+            throw error("not a groupfit model: unknown level type " + std::to_string(kind));
+        }
+        std::string key = lv.key();
+        if (s.index_.count(key)) throw error("not a groupfit model: a level appears twice");
+        const std::size_t cell = s.add_cell(lv, std::move(key), lim);
+        const auto rows = r.get<std::uint64_t>();
+        if (rows == 0 || rows > (std::uint64_t(1) << 62))
+            throw error("not a groupfit model: a cell has an impossible row count");
+        s.n_[cell] = static_cast<std::int64_t>(rows);
+        s.log_w_[cell] = r.finite();
+        double* v = s.origin(cell);
+        for (std::size_t j = 0; j < s.stride(); ++j) v[j] = r.finite();
+        const double* dd = s.cell_d(cell);
+        for (int j = 0; j < k; ++j)
+            if (dd[j] < 0) throw error("not a groupfit model: a cell factor has a negative weight");
+        if (!(dd[0] > 0)) throw error("not a groupfit model: a cell has no weight");
+    }
+    if (r.at != r.n) throw error("not a groupfit model: unexpected bytes after the last cell");
+    return s;
+}
+
+}  // namespace groupfit

@@ -1,0 +1,123 @@
+// groupfit core: the mergeable per-cell summary behind every model.
+//
+// For each cell (level of the grouping) the summary keeps a square-root-free
+// orthogonal factor of the cell's rows over the columns [1, x1..xp, y], after
+// shifting every column by the cell's origin (the first value seen in that
+// cell). The factor is the one of Gentleman's weighted Givens algorithm
+// (Gentleman 1974, Applied Statistics algorithm AS 75): a diagonal D and a unit
+// upper-triangular Rbar with R = D^(1/2) Rbar, so that R'R equals the weighted
+// cross-product matrix of the shifted rows without ever forming it. The first
+// row of Rbar holds the cell's running means; D[0] is the cell's weight sum;
+// the last entry of D is the cell's residual sum of squares of y on the
+// covariates within the cell.
+//
+// Two summaries merge exactly (up to rounding): the rows of one factor are fed,
+// with their weights D[i], into the other. Memory is O(cells x (p+2)^2),
+// whatever the number of rows.
+#pragma once
+
+#include <array>
+#include <cstddef>
+#include <cstdint>
+#include <string>
+#include <string_view>
+#include <unordered_map>
+#include <vector>
+
+#include "level.hpp"
+
+namespace groupfit {
+
+/// Why a row was left out of a model.
+enum class drop_reason : int {
+    null_response = 0,
+    null_group,
+    null_covariate,
+    null_weight,
+    zero_weight,
+};
+inline constexpr int drop_reason_count = 5;
+const char* drop_reason_name(drop_reason r);
+
+/// Limits that protect the host process. Per connection, never global.
+struct limits {
+    std::size_t max_levels = 50000;
+    int max_covariates = 32;
+};
+
+inline constexpr std::uint16_t format_version = 1;
+
+namespace detail {
+/// Include one weighted row (length k) into a square-root-free factor (d, rbar
+/// packed by rows) starting at column `first`. The row is overwritten. Returns
+/// the weighted squared residual the row adds to the last column, which is the
+/// increase of the residual sum of squares of the last column on the others.
+double include_row(int k, double* d, double* rbar, double* row, double w, int first = 0);
+/// Index of rbar(i, j), j > i, in the packed upper triangle of a k-column factor.
+inline int rbar_index(int k, int i, int j) { return i * (2 * k - i - 1) / 2 + (j - i - 1); }
+}  // namespace detail
+
+class summary {
+public:
+    summary() = default;
+    summary(int covariates, bool weighted);
+
+    int covariates() const { return p_; }
+    int width() const { return p_ + 2; }  // columns of the factor: 1, x1..xp, y
+    bool weighted() const { return weighted_; }
+    std::size_t cells() const { return levels_.size(); }
+    std::int64_t rows_used() const;
+    std::int64_t dropped(drop_reason r) const { return dropped_[static_cast<int>(r)]; }
+    std::int64_t dropped_total() const;
+
+    /// The cell of a level, created on first sight. Throws groupfit::error when
+    /// the cap on levels would be exceeded.
+    std::size_t cell_for(const level& lv, const limits& lim);
+
+    /// Adds one row to a cell: values holds x1..xp then y (raw, finite); w > 0.
+    void add_row(std::size_t cell, const double* values, double w);
+    void drop(drop_reason r) { ++dropped_[static_cast<int>(r)]; }
+
+    /// Adds the other summary's cells and counts. Throws when shapes differ or the
+    /// level cap would be exceeded.
+    void merge(const summary& other, const limits& lim);
+
+    std::string serialize() const;
+    /// Parses a model BLOB; throws groupfit::error naming what is wrong.
+    static summary deserialize(std::string_view blob, const limits& lim);
+
+    // Read access to one cell.
+    const level& cell_level(std::size_t c) const { return levels_[c]; }
+    std::int64_t cell_rows(std::size_t c) const { return n_[c]; }
+    double cell_log_weight(std::size_t c) const { return log_w_[c]; }
+    const double* cell_origin(std::size_t c) const { return &data_[c * stride()]; }  // p+1
+    const double* cell_d(std::size_t c) const { return cell_origin(c) + (p_ + 1); }  // p+2
+    const double* cell_rbar(std::size_t c) const { return cell_d(c) + (p_ + 2); }
+    /// Mean of column j (0..p-1 covariates, p = response) in cell c.
+    double cell_mean(std::size_t c, int j) const;
+
+private:
+    std::size_t stride() const {
+        const std::size_t k = p_ + 2;
+        return (k - 1) + k + k * (k - 1) / 2;
+    }
+    double* origin(std::size_t c) { return &data_[c * stride()]; }
+    double* d(std::size_t c) { return origin(c) + (p_ + 1); }
+    double* rbar(std::size_t c) { return d(c) + (p_ + 2); }
+    std::size_t add_cell(const level& lv, std::string key, const limits& lim);
+    void merge_cell(std::size_t into, const summary& from, std::size_t c);
+
+    int p_ = 0;
+    bool weighted_ = false;
+    std::vector<level> levels_;
+    std::vector<std::int64_t> n_;
+    std::vector<double> log_w_;
+    std::vector<double> data_;  // per cell: origin[p+1], d[p+2], rbar[(p+2)(p+1)/2]
+    std::unordered_map<std::string, std::size_t> index_;
+    std::string last_key_;
+    std::size_t last_cell_ = 0;
+    std::array<std::int64_t, drop_reason_count> dropped_{};
+    std::vector<double> scratch_;
+};
+
+}  // namespace groupfit

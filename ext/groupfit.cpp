@@ -1,0 +1,550 @@
+/*
+** groupfit: group comparisons (one-factor linear models with covariates)
+** inside SQLite.
+**
+**   .load ./build/release/groupfit
+**   CREATE TABLE m AS
+**     SELECT groupfit(minutes, carrier, distance_km, weight_kg) AS model
+**     FROM deliveries;
+**   SELECT * FROM groupfit_coef((SELECT model FROM m),
+**                               'coding=effect; names=carrier, distance_km, weight_kg');
+**   SELECT * FROM groupfit_tests((SELECT model FROM m));
+**   -- one model per segment, joined like any other rows
+**   SELECT region, c.label, c.estimate, c.p_value
+**     FROM (SELECT depot_id, groupfit(minutes, carrier) AS model
+**             FROM deliveries GROUP BY depot_id) AS s
+**     JOIN depots USING (depot_id), groupfit_coef(s.model) AS c;
+**
+** Aggregates (return a model BLOB):
+**   groupfit(y, grp [, x1, ...])            response, grouping, covariates
+**   groupfit_weighted(w, y, grp [, x1, ...]) analytic weights (w = 0 skipped)
+**   groupfit_merge(model)                   union of models of one shape
+** Table-valued functions (hidden arguments model, options):
+**   groupfit_coef, groupfit_levels, groupfit_deviations, groupfit_tests,
+**   groupfit_summary
+** Scalar:
+**   groupfit_limit(name [, value])          read or set a per-connection limit
+**                                           ('levels', 'covariates')
+**
+** How it works: the aggregate keeps, per level, a square-root-free Givens
+** factor of that level's shifted rows (core/summary.hpp); the BLOB is that
+** summary, versioned and checksummed. Each table-valued function decodes the
+** BLOB, fits the model (core/fit.hpp) under the options given and returns the
+** rows of one report (core/report.hpp). This file is only the SQLite glue:
+** argument checks, type conversion, registration, and turning C++ exceptions
+** into SQLite errors. No exception crosses into SQLite.
+*/
+#include <sqlite3ext.h>
+SQLITE_EXTENSION_INIT1
+
+#include <cerrno>
+#include <cmath>
+#include <cstdlib>
+#include <cstring>
+#include <functional>
+#include <memory>
+#include <new>
+#include <string>
+#include <vector>
+
+#include "error.hpp"
+#include "fit.hpp"
+#include "options.hpp"
+#include "report.hpp"
+#include "summary.hpp"
+
+namespace {
+
+using groupfit::summary;
+
+/* Per-connection settings, shared by every function registered on one
+** connection and freed when the last of them is destroyed. */
+struct connection_config {
+    groupfit::limits lim;
+    int refs = 0;
+};
+
+void release_config(void* p) {
+    auto* c = static_cast<connection_config*>(p);
+    if (--c->refs == 0) delete c;
+}
+
+connection_config* config_of(sqlite3_context* ctx) {
+    return static_cast<connection_config*>(sqlite3_user_data(ctx));
+}
+
+/* Runs `body`, mapping exceptions to an SQL error on ctx that names `fn`. */
+template <class F>
+void guarded(sqlite3_context* ctx, const char* fn, F&& body) {
+    try {
+        body();
+    } catch (const std::bad_alloc&) {
+        sqlite3_result_error_nomem(ctx);
+    } catch (const groupfit::error& e) {
+        std::string msg = std::string(fn) + ": " + e.what();
+        sqlite3_result_error(ctx, msg.c_str(), -1);
+    } catch (const std::exception& e) {
+        std::string msg = std::string(fn) + ": internal error: " + e.what();
+        sqlite3_result_error(ctx, msg.c_str(), -1);
+    }
+}
+
+const char* type_name(int t) {
+    switch (t) {
+    case SQLITE_INTEGER: return "an integer";
+    case SQLITE_FLOAT: return "a real";
+    case SQLITE_TEXT: return "text";
+    case SQLITE_BLOB: return "a blob";
+    default: return "NULL";
+    }
+}
+
+/* A numeric argument: false for NULL; throws for anything that is not a finite
+** number (text is accepted only when the whole text is a number). */
+bool numeric_arg(sqlite3_value* v, const std::string& what, double& out) {
+    switch (sqlite3_value_type(v)) {
+    case SQLITE_NULL: return false;
+    case SQLITE_INTEGER: out = static_cast<double>(sqlite3_value_int64(v)); return true;
+    case SQLITE_FLOAT:
+        out = sqlite3_value_double(v);
+        if (!std::isfinite(out))
+            throw groupfit::error(what + " must be a finite number, got " +
+                                  (std::isnan(out) ? std::string("NaN") : out > 0 ? "Inf" : "-Inf"));
+        return true;
+    case SQLITE_TEXT: {
+        const char* s = reinterpret_cast<const char*>(sqlite3_value_text(v));
+        std::string t = s ? s : "";
+        char* end = nullptr;
+        errno = 0;
+        const double x = std::strtod(t.c_str(), &end);
+        while (end && *end == ' ') ++end;
+        if (t.empty() || !end || *end != '\0' || end == t.c_str() || !std::isfinite(x) ||
+            t.find_first_of("xXnN") != std::string::npos)  // no hex, nan, inf spellings
+            throw groupfit::error(what + " must be a number, got text '" + t.substr(0, 40) + "'");
+        out = x;
+        return true;
+    }
+    default: throw groupfit::error(what + " must be a number, got a blob");
+    }
+}
+
+groupfit::level level_arg(sqlite3_value* v) {
+    switch (sqlite3_value_type(v)) {
+    case SQLITE_INTEGER: return groupfit::level::from_integer(sqlite3_value_int64(v));
+    case SQLITE_FLOAT: return groupfit::level::from_real(sqlite3_value_double(v));
+    case SQLITE_TEXT:
+        return groupfit::level::from_text(std::string_view(
+            reinterpret_cast<const char*>(sqlite3_value_text(v)), sqlite3_value_bytes(v)));
+    default:
+        return groupfit::level::from_blob(std::string_view(
+            static_cast<const char*>(sqlite3_value_blob(v)), sqlite3_value_bytes(v)));
+    }
+}
+
+/* ---------------------------------------------------------------- aggregates */
+
+struct agg_state {
+    summary* s;
+};
+
+void fit_step(sqlite3_context* ctx, int argc, sqlite3_value** argv, bool weighted) {
+    const char* fn = weighted ? "groupfit_weighted" : "groupfit";
+    guarded(ctx, fn, [&] {
+        const int lead = weighted ? 3 : 2;
+        if (argc < lead)
+            throw groupfit::error(weighted ? "needs at least (weight, response, grouping)"
+                                           : "needs at least (response, grouping)");
+        const int p = argc - lead;
+        const auto& lim = config_of(ctx)->lim;
+        if (p > lim.max_covariates)
+            throw groupfit::error("too many covariates: " + std::to_string(p) + " given, the limit is " +
+                                  std::to_string(lim.max_covariates));
+        auto* st = static_cast<agg_state*>(sqlite3_aggregate_context(ctx, sizeof(agg_state)));
+        if (!st) throw std::bad_alloc();
+        if (!st->s) st->s = new summary(p, weighted);
+        summary& s = *st->s;
+        if (s.covariates() != p)
+            throw groupfit::error("the number of covariates changed between rows");
+
+        double vals[130];
+        bool null_x = false, null_y, null_w = false;
+        double w = 1.0;
+        if (weighted) {
+            null_w = !numeric_arg(argv[0], "weight (argument 1)", w);
+            if (!null_w && w < 0)
+                throw groupfit::error("weight (argument 1) must be >= 0, got " +
+                                      groupfit::shortest_real(w));
+        }
+        null_y = !numeric_arg(argv[lead - 2], "response (argument " + std::to_string(lead - 1) + ")",
+                              vals[p]);
+        for (int j = 0; j < p; ++j)
+            if (!numeric_arg(argv[lead + j],
+                             "covariate " + std::to_string(j + 1) + " (argument " +
+                                 std::to_string(lead + j + 1) + ")",
+                             vals[j]))
+                null_x = true;
+        sqlite3_value* g = argv[lead - 1];
+        if (null_w) return s.drop(groupfit::drop_reason::null_weight);
+        if (null_y) return s.drop(groupfit::drop_reason::null_response);
+        if (sqlite3_value_type(g) == SQLITE_NULL) return s.drop(groupfit::drop_reason::null_group);
+        if (null_x) return s.drop(groupfit::drop_reason::null_covariate);
+        if (w == 0.0) return s.drop(groupfit::drop_reason::zero_weight);
+        const std::size_t cell = s.cell_for(level_arg(g), lim);
+        s.add_row(cell, vals, w);
+    });
+}
+
+void groupfit_step(sqlite3_context* ctx, int argc, sqlite3_value** argv) {
+    fit_step(ctx, argc, argv, false);
+}
+void groupfit_weighted_step(sqlite3_context* ctx, int argc, sqlite3_value** argv) {
+    fit_step(ctx, argc, argv, true);
+}
+
+void merge_step(sqlite3_context* ctx, int, sqlite3_value** argv) {
+    guarded(ctx, "groupfit_merge", [&] {
+        sqlite3_value* v = argv[0];
+        if (sqlite3_value_type(v) == SQLITE_NULL) return;
+        if (sqlite3_value_type(v) != SQLITE_BLOB)
+            throw groupfit::error(std::string("model must be a BLOB made by groupfit(), got ") +
+                                  type_name(sqlite3_value_type(v)));
+        const auto& lim = config_of(ctx)->lim;
+        summary in = summary::deserialize(
+            std::string_view(static_cast<const char*>(sqlite3_value_blob(v)), sqlite3_value_bytes(v)),
+            lim);
+        auto* st = static_cast<agg_state*>(sqlite3_aggregate_context(ctx, sizeof(agg_state)));
+        if (!st) throw std::bad_alloc();
+        if (!st->s) st->s = new summary(std::move(in));
+        else st->s->merge(in, lim);
+    });
+}
+
+/* Shared xFinal: the model BLOB, or NULL when no row (or model) was seen. */
+void model_final(sqlite3_context* ctx, const char* fn) {
+    auto* st = static_cast<agg_state*>(sqlite3_aggregate_context(ctx, 0));
+    std::unique_ptr<summary> s(st ? st->s : nullptr);
+    if (st) st->s = nullptr;
+    if (!s) return sqlite3_result_null(ctx);
+    guarded(ctx, fn, [&] {
+        std::string blob = s->serialize();
+        sqlite3_result_blob64(ctx, blob.data(), blob.size(), SQLITE_TRANSIENT);
+    });
+}
+void groupfit_final(sqlite3_context* ctx) { model_final(ctx, "groupfit"); }
+void groupfit_weighted_final(sqlite3_context* ctx) { model_final(ctx, "groupfit_weighted"); }
+void merge_final(sqlite3_context* ctx) { model_final(ctx, "groupfit_merge"); }
+
+/* ---------------------------------------------------------------- scalars */
+
+void limit_func(sqlite3_context* ctx, int argc, sqlite3_value** argv) {
+    guarded(ctx, "groupfit_limit", [&] {
+        auto& lim = config_of(ctx)->lim;
+        const char* name = reinterpret_cast<const char*>(sqlite3_value_text(argv[0]));
+        const std::string n = name ? name : "";
+        sqlite3_int64 old;
+        if (n == "levels") old = static_cast<sqlite3_int64>(lim.max_levels);
+        else if (n == "covariates") old = lim.max_covariates;
+        else throw groupfit::error("name must be one of levels, covariates (not '" + n + "')");
+        if (argc == 2) {
+            if (sqlite3_value_type(argv[1]) != SQLITE_INTEGER)
+                throw groupfit::error("value must be an integer");
+            const sqlite3_int64 v = sqlite3_value_int64(argv[1]);
+            if (n == "levels") {
+                if (v < 1 || v > 10000000)
+                    throw groupfit::error("levels must be between 1 and 10000000");
+                lim.max_levels = static_cast<std::size_t>(v);
+            } else {
+                if (v < 0 || v > 120) throw groupfit::error("covariates must be between 0 and 120");
+                lim.max_covariates = static_cast<int>(v);
+            }
+        }
+        sqlite3_result_int64(ctx, old);
+    });
+}
+
+/* ------------------------------------------------- table-valued functions
+** One eponymous virtual table per report. Every table has the report's
+** columns followed by two HIDDEN argument columns, model and options. */
+
+struct report_kind {
+    const char* name;
+    const std::vector<std::string>& (*columns)();
+    groupfit::table (*make)(const groupfit::fit&, const summary&);
+};
+
+groupfit::table make_coef(const groupfit::fit& f, const summary&) { return groupfit::coef_report(f); }
+groupfit::table make_levels(const groupfit::fit& f, const summary&) { return groupfit::levels_report(f); }
+groupfit::table make_deviations(const groupfit::fit& f, const summary&) {
+    return groupfit::deviations_report(f);
+}
+groupfit::table make_tests(const groupfit::fit& f, const summary&) { return groupfit::tests_report(f); }
+groupfit::table make_summary(const groupfit::fit& f, const summary& s) {
+    return groupfit::summary_report(f, s);
+}
+
+const report_kind reports[] = {
+    {"groupfit_coef", groupfit::coef_columns, make_coef},
+    {"groupfit_levels", groupfit::levels_columns, make_levels},
+    {"groupfit_deviations", groupfit::deviations_columns, make_deviations},
+    {"groupfit_tests", groupfit::tests_columns, make_tests},
+    {"groupfit_summary", groupfit::summary_columns, make_summary},
+};
+
+struct report_module_aux {
+    const report_kind* kind;
+    connection_config* config;
+};
+
+struct report_vtab {
+    sqlite3_vtab base;
+    const report_kind* kind;
+    connection_config* config;
+    int ncol;  // report columns; model is column ncol, options ncol + 1
+};
+
+struct report_cursor {
+    sqlite3_vtab_cursor base;
+    groupfit::table result;
+    std::size_t row = 0;
+    sqlite3_value* args[2] = {nullptr, nullptr};
+};
+
+/* idxNum bits: 1 = the model argument is bound (argv[0]),
+**              2 = the options argument is bound (next argv). */
+enum { idx_model = 1, idx_options = 2 };
+
+void set_vtab_error(sqlite3_vtab* vt, const std::string& msg) {
+    sqlite3_free(vt->zErrMsg);
+    vt->zErrMsg = sqlite3_mprintf("%s", msg.c_str());
+}
+
+int report_connect(sqlite3* db, void* aux, int, const char* const*, sqlite3_vtab** out, char** err) {
+    auto* a = static_cast<report_module_aux*>(aux);
+    std::string schema = "CREATE TABLE x(";
+    for (const auto& c : a->kind->columns()) schema += c + ",";
+    schema += "model HIDDEN, options HIDDEN)";
+    int rc = sqlite3_declare_vtab(db, schema.c_str());
+    if (rc != SQLITE_OK) return rc;
+    auto* vt = static_cast<report_vtab*>(sqlite3_malloc(sizeof(report_vtab)));
+    if (!vt) return SQLITE_NOMEM;
+    std::memset(vt, 0, sizeof *vt);
+    vt->kind = a->kind;
+    vt->config = a->config;
+    vt->ncol = static_cast<int>(a->kind->columns().size());
+    sqlite3_vtab_config(db, SQLITE_VTAB_INNOCUOUS);
+    *out = &vt->base;
+    (void)err;
+    return SQLITE_OK;
+}
+
+int report_disconnect(sqlite3_vtab* vt) {
+    sqlite3_free(vt);
+    return SQLITE_OK;
+}
+
+int report_best_index(sqlite3_vtab* tab, sqlite3_index_info* info) {
+    auto* vt = reinterpret_cast<report_vtab*>(tab);
+    int where[2] = {-1, -1};
+    bool seen_unusable[2] = {false, false};
+    for (int i = 0; i < info->nConstraint; ++i) {
+        const auto& c = info->aConstraint[i];
+        const int arg = c.iColumn - vt->ncol;
+        if (arg < 0 || arg > 1 || c.op != SQLITE_INDEX_CONSTRAINT_EQ) continue;
+        if (!c.usable) seen_unusable[arg] = true;
+        else where[arg] = i;
+    }
+    if (where[0] < 0) {
+        if (seen_unusable[0]) return SQLITE_CONSTRAINT;  // try another plan
+        set_vtab_error(tab, std::string(vt->kind->name) + ": the model argument is missing");
+        return SQLITE_ERROR;
+    }
+    if (where[1] < 0 && seen_unusable[1]) return SQLITE_CONSTRAINT;
+    int argv_index = 1, idx = 0;
+    for (int a = 0; a < 2; ++a) {
+        if (where[a] < 0) continue;
+        info->aConstraintUsage[where[a]].argvIndex = argv_index++;
+        info->aConstraintUsage[where[a]].omit = 1;
+        idx |= a == 0 ? idx_model : idx_options;
+    }
+    info->idxNum = idx;
+    info->estimatedCost = 10.0;
+    info->estimatedRows = 10;
+    return SQLITE_OK;
+}
+
+int report_open(sqlite3_vtab*, sqlite3_vtab_cursor** out) {
+    auto* cur = new (std::nothrow) report_cursor();
+    if (!cur) return SQLITE_NOMEM;
+    *out = &cur->base;
+    return SQLITE_OK;
+}
+
+void clear_args(report_cursor* cur) {
+    for (auto& a : cur->args) {
+        sqlite3_value_free(a);
+        a = nullptr;
+    }
+}
+
+int report_close(sqlite3_vtab_cursor* c) {
+    auto* cur = reinterpret_cast<report_cursor*>(c);
+    clear_args(cur);
+    delete cur;
+    return SQLITE_OK;
+}
+
+int report_filter(sqlite3_vtab_cursor* c, int idx, const char*, int argc, sqlite3_value** argv) {
+    auto* cur = reinterpret_cast<report_cursor*>(c);
+    auto* vt = reinterpret_cast<report_vtab*>(c->pVtab);
+    cur->result = groupfit::table{};
+    cur->row = 0;
+    clear_args(cur);
+    int next = 0;
+    sqlite3_value* model = (idx & idx_model) && next < argc ? argv[next++] : nullptr;
+    sqlite3_value* opts = (idx & idx_options) && next < argc ? argv[next++] : nullptr;
+    if (model) cur->args[0] = sqlite3_value_dup(model);
+    if (opts) cur->args[1] = sqlite3_value_dup(opts);
+    if (!model || sqlite3_value_type(model) == SQLITE_NULL) return SQLITE_OK;  // no rows
+    try {
+        if (sqlite3_value_type(model) != SQLITE_BLOB)
+            throw groupfit::error(std::string("model must be a BLOB made by groupfit(), got ") +
+                                  type_name(sqlite3_value_type(model)));
+        std::string text;
+        if (opts && sqlite3_value_type(opts) != SQLITE_NULL) {
+            if (sqlite3_value_type(opts) != SQLITE_TEXT)
+                throw groupfit::error(std::string("options must be text, got ") +
+                                      type_name(sqlite3_value_type(opts)));
+            text = reinterpret_cast<const char*>(sqlite3_value_text(opts));
+        }
+        const groupfit::options o = groupfit::parse_options(text);
+        const summary s = summary::deserialize(
+            std::string_view(static_cast<const char*>(sqlite3_value_blob(model)),
+                             sqlite3_value_bytes(model)),
+            vt->config->lim);
+        if (s.cells() == 0)
+            throw groupfit::error("the model has no usable rows (" +
+                                  std::to_string(s.dropped_total()) + " rows were dropped for NULLs "
+                                  "or zero weights)");
+        const groupfit::fit f(s, o);
+        cur->result = vt->kind->make(f, s);
+    } catch (const std::bad_alloc&) {
+        return SQLITE_NOMEM;
+    } catch (const std::exception& e) {
+        set_vtab_error(c->pVtab, std::string(vt->kind->name) + ": " + e.what());
+        return SQLITE_ERROR;
+    }
+    return SQLITE_OK;
+}
+
+int report_next(sqlite3_vtab_cursor* c) {
+    ++reinterpret_cast<report_cursor*>(c)->row;
+    return SQLITE_OK;
+}
+
+int report_eof(sqlite3_vtab_cursor* c) {
+    auto* cur = reinterpret_cast<report_cursor*>(c);
+    return cur->row >= cur->result.rows.size();
+}
+
+int report_column(sqlite3_vtab_cursor* c, sqlite3_context* ctx, int col) {
+    auto* cur = reinterpret_cast<report_cursor*>(c);
+    auto* vt = reinterpret_cast<report_vtab*>(c->pVtab);
+    if (col >= vt->ncol) {
+        sqlite3_value* a = cur->args[col - vt->ncol];
+        if (a) sqlite3_result_value(ctx, a);
+        return SQLITE_OK;
+    }
+    const groupfit::value& v = cur->result.rows[cur->row][col];
+    if (auto* i = std::get_if<std::int64_t>(&v)) sqlite3_result_int64(ctx, *i);
+    else if (auto* d = std::get_if<double>(&v)) sqlite3_result_double(ctx, *d);
+    else if (auto* s = std::get_if<std::string>(&v))
+        sqlite3_result_text64(ctx, s->data(), s->size(), SQLITE_TRANSIENT, SQLITE_UTF8);
+    else sqlite3_result_null(ctx);
+    return SQLITE_OK;
+}
+
+int report_rowid(sqlite3_vtab_cursor* c, sqlite3_int64* out) {
+    *out = static_cast<sqlite3_int64>(reinterpret_cast<report_cursor*>(c)->row) + 1;
+    return SQLITE_OK;
+}
+
+sqlite3_module report_module = [] {
+    sqlite3_module m{};
+    m.iVersion = 0;
+    m.xCreate = nullptr;  // eponymous only
+    m.xConnect = report_connect;
+    m.xBestIndex = report_best_index;
+    m.xDisconnect = report_disconnect;
+    m.xDestroy = report_disconnect;
+    m.xOpen = report_open;
+    m.xClose = report_close;
+    m.xFilter = report_filter;
+    m.xNext = report_next;
+    m.xEof = report_eof;
+    m.xColumn = report_column;
+    m.xRowid = report_rowid;
+    return m;
+}();
+
+void free_module_aux(void* p) {
+    auto* a = static_cast<report_module_aux*>(p);
+    release_config(a->config);
+    delete a;
+}
+
+/* ---------------------------------------------------------------- registration */
+
+constexpr int pure = SQLITE_UTF8 | SQLITE_DETERMINISTIC | SQLITE_INNOCUOUS;
+
+struct function_entry {
+    const char* name;
+    int nargs;
+    int flags;
+    void (*func)(sqlite3_context*, int, sqlite3_value**);
+    void (*step)(sqlite3_context*, int, sqlite3_value**);
+    void (*final)(sqlite3_context*);
+};
+
+const function_entry functions[] = {
+    {"groupfit", -1, pure, nullptr, groupfit_step, groupfit_final},
+    {"groupfit_weighted", -1, pure, nullptr, groupfit_weighted_step, groupfit_weighted_final},
+    {"groupfit_merge", 1, pure, nullptr, merge_step, merge_final},
+    // Changes per-connection state: never usable from views, triggers or schemas.
+    {"groupfit_limit", 1, SQLITE_UTF8 | SQLITE_DIRECTONLY, limit_func, nullptr, nullptr},
+    {"groupfit_limit", 2, SQLITE_UTF8 | SQLITE_DIRECTONLY, limit_func, nullptr, nullptr},
+};
+
+}  // namespace
+
+extern "C"
+#ifdef _WIN32
+__declspec(dllexport)
+#else
+__attribute__((visibility("default")))
+#endif
+int sqlite3_groupfit_init(sqlite3* db, char** err, const sqlite3_api_routines* api) {
+    SQLITE_EXTENSION_INIT2(api);
+    auto* config = new (std::nothrow) connection_config();
+    if (!config) return SQLITE_NOMEM;
+    config->refs = 1;  // held by this function until registration ends
+    int rc = SQLITE_OK;
+    for (const auto& f : functions) {
+        ++config->refs;
+        rc = sqlite3_create_function_v2(db, f.name, f.nargs, f.flags, config, f.func, f.step,
+                                        f.final, release_config);
+        if (rc != SQLITE_OK) break;  // xDestroy has already run on failure
+    }
+    for (const auto& r : reports) {
+        if (rc != SQLITE_OK) break;
+        auto* aux = new (std::nothrow) report_module_aux{&r, config};
+        if (!aux) {
+            rc = SQLITE_NOMEM;
+            break;
+        }
+        ++config->refs;
+        rc = sqlite3_create_module_v2(db, r.name, &report_module, aux, free_module_aux);
+    }
+    if (rc != SQLITE_OK && err) *err = sqlite3_mprintf("groupfit: registration failed (%s)", sqlite3_errstr(rc));
+    release_config(config);
+    return rc;
+}

@@ -250,17 +250,21 @@ estimate fit::evaluate(const linear_function& f) const {
     for (int j = 0; j < p_; ++j) {
         if (!alias_[j]) continue;
         const Eigen::VectorXd& delta = alias_delta_[j];
+        // Scale: the magnitudes that cancel in `along`, so that rounding in an
+        // exact collinearity is not mistaken for a real dependence.
         Eigen::VectorXd gamma = xb_.col(j);
+        Eigen::VectorXd gamma_mag = xb_.col(j).cwiseAbs();
         double scale = std::fabs(f.g[j]);
         double along = f.g[j];
         for (std::size_t b = 0; b < kept_.size(); ++b) {
             if (delta.size() == 0) break;
             gamma -= xb_.col(kept_[b]) * delta[b];
+            gamma_mag += xb_.col(kept_[b]).cwiseAbs() * std::fabs(delta[b]);
             along -= f.g[kept_[b]] * delta[b];
             scale += std::fabs(f.g[kept_[b]] * delta[b]);
         }
         along -= f.a.dot(gamma);
-        scale += f.a.cwiseAbs().dot(gamma.cwiseAbs());
+        scale += f.a.cwiseAbs().dot(gamma_mag);
         if (std::fabs(along) > 1e-9 * scale + 1e-300) {
             e.estimable = false;
             return e;

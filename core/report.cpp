@@ -98,8 +98,7 @@ table coef_report(const fit& f) {
     }
     for (int j = 0; j < f.covariates(); ++j) {
         std::vector<value> row{text(f.covariate_name(j)), text("slope"),
-                               text("change in the response per unit of " +
-                                    f.covariate_name(j) + ", other terms held fixed")};
+                               text("per unit of " + f.covariate_name(j))};
         if (f.aliased(j)) {
             for (int c = 0; c < 7; ++c) row.push_back(value{});
             row.push_back(text(f.alias_reason(j)));

@@ -85,13 +85,42 @@ std::size_t summary::add_cell(const level& lv, std::string key, const limits& li
 }
 
 std::size_t summary::cell_for(const level& lv, const limits& lim) {
-    std::string key = lv.key();
-    if (!levels_.empty() && key == last_key_) return last_cell_;
-    auto it = index_.find(key);
-    std::size_t c = it != index_.end() ? it->second : add_cell(lv, key, lim);
-    last_key_ = std::move(key);
-    last_cell_ = c;
-    return c;
+    switch (lv.kind) {
+    case level_kind::integer: return cell_for(lv.kind, &lv.i, sizeof lv.i, lim);
+    case level_kind::real: return cell_for(lv.kind, &lv.r, sizeof lv.r, lim);
+    default: return cell_for(lv.kind, lv.bytes.data(), lv.bytes.size(), lim);
+    }
+}
+
+std::size_t summary::cell_for(level_kind kind, const void* data, std::size_t len,
+                              const limits& lim) {
+    if (kind == level_kind::real) {
+        const level lv = level::from_real(*static_cast<const double*>(data));
+        if (lv.kind == level_kind::integer) return cell_for(lv, lim);
+    }
+    // Key = kind byte + payload, the same bytes as level::key().
+    const auto* bytes = static_cast<const char*>(data);
+    if (!levels_.empty() && last_key_.size() == len + 1 && last_key_[0] == static_cast<char>(kind) &&
+        std::memcmp(last_key_.data() + 1, bytes, len) == 0)
+        return last_cell_;
+    last_key_.assign(1, static_cast<char>(kind));
+    last_key_.append(bytes, len);
+    auto it = index_.find(std::string_view(last_key_));
+    if (it != index_.end()) return last_cell_ = it->second;
+    level lv;
+    switch (kind) {
+    case level_kind::integer: lv = level::from_integer(*static_cast<const std::int64_t*>(data)); break;
+    case level_kind::real: lv = level::from_real(*static_cast<const double*>(data)); break;
+    case level_kind::text: lv = level::from_text(std::string_view(bytes, len)); break;
+    case level_kind::blob: lv = level::from_blob(std::string_view(bytes, len)); break;
+    }
+    try {
+        last_cell_ = add_cell(lv, last_key_, lim);
+    } catch (...) {
+        last_key_.clear();
+        throw;
+    }
+    return last_cell_;
 }
 
 void summary::add_row(std::size_t c, const double* values, double w) {

@@ -73,6 +73,11 @@ public:
     /// The cell of a level, created on first sight. Throws groupfit::error when
     /// the cap on levels would be exceeded.
     std::size_t cell_for(const level& lv, const limits& lim);
+    /// The same from raw bytes, without building a level unless the cell is new:
+    /// for integers `data` points to an int64, for reals to a double (normalised
+    /// like level::from_real), for text and blobs to the bytes. The hot path of
+    /// the aggregate: the last level seen is compared before any hashing.
+    std::size_t cell_for(level_kind kind, const void* data, std::size_t len, const limits& lim);
 
     /// Adds one row to a cell: values holds x1..xp then y (raw, finite); w > 0.
     void add_row(std::size_t cell, const double* values, double w);
@@ -113,7 +118,11 @@ private:
     std::vector<std::int64_t> n_;
     std::vector<double> log_w_;
     std::vector<double> data_;  // per cell: origin[p+1], d[p+2], rbar[(p+2)(p+1)/2]
-    std::unordered_map<std::string, std::size_t> index_;
+    struct key_hash {
+        using is_transparent = void;
+        std::size_t operator()(std::string_view k) const { return std::hash<std::string_view>{}(k); }
+    };
+    std::unordered_map<std::string, std::size_t, key_hash, std::equal_to<>> index_;
     std::string last_key_;
     std::size_t last_cell_ = 0;
     std::array<std::int64_t, drop_reason_count> dropped_{};

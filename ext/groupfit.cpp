@@ -99,23 +99,29 @@ const char* type_name(int t) {
     }
 }
 
+/* Names an argument in messages: "response (argument 1)",
+** "covariate 2 (argument 4)". Built only when there is an error to report. */
+std::string arg_name(const char* role, int covariate, int position) {
+    std::string s = role;
+    if (covariate > 0) s += " " + std::to_string(covariate);
+    return s + " (argument " + std::to_string(position) + ")";
+}
+
 /* A numeric argument: false for NULL; throws for anything that is not a finite
 ** number (text is accepted only when the whole text is a number). */
-bool numeric_arg(sqlite3_value* v, const std::string& what, double& out) {
+[[gnu::cold]] bool numeric_slow(sqlite3_value* v, const char* role, int covariate, int position,
+                                double& out) {
+    const std::string what = arg_name(role, covariate, position);
     switch (sqlite3_value_type(v)) {
-    case SQLITE_NULL: return false;
-    case SQLITE_INTEGER: out = static_cast<double>(sqlite3_value_int64(v)); return true;
-    case SQLITE_FLOAT:
-        out = sqlite3_value_double(v);
-        if (!std::isfinite(out))
-            throw groupfit::error(what + " must be a finite number, got " +
-                                  (std::isnan(out) ? std::string("NaN") : out > 0 ? "Inf" : "-Inf"));
-        return true;
+    case SQLITE_FLOAT: {
+        const double x = sqlite3_value_double(v);
+        throw groupfit::error(what + " must be a finite number, got " +
+                              (std::isnan(x) ? std::string("NaN") : x > 0 ? "Inf" : "-Inf"));
+    }
     case SQLITE_TEXT: {
         const char* s = reinterpret_cast<const char*>(sqlite3_value_text(v));
         std::string t = s ? s : "";
         char* end = nullptr;
-        errno = 0;
         const double x = std::strtod(t.c_str(), &end);
         while (end && *end == ' ') ++end;
         if (t.empty() || !end || *end != '\0' || end == t.c_str() || !std::isfinite(x) ||
@@ -128,16 +134,16 @@ bool numeric_arg(sqlite3_value* v, const std::string& what, double& out) {
     }
 }
 
-groupfit::level level_arg(sqlite3_value* v) {
+inline bool numeric_arg(sqlite3_value* v, const char* role, int covariate, int position,
+                        double& out) {
     switch (sqlite3_value_type(v)) {
-    case SQLITE_INTEGER: return groupfit::level::from_integer(sqlite3_value_int64(v));
-    case SQLITE_FLOAT: return groupfit::level::from_real(sqlite3_value_double(v));
-    case SQLITE_TEXT:
-        return groupfit::level::from_text(std::string_view(
-            reinterpret_cast<const char*>(sqlite3_value_text(v)), sqlite3_value_bytes(v)));
-    default:
-        return groupfit::level::from_blob(std::string_view(
-            static_cast<const char*>(sqlite3_value_blob(v)), sqlite3_value_bytes(v)));
+    case SQLITE_NULL: return false;
+    case SQLITE_INTEGER: out = static_cast<double>(sqlite3_value_int64(v)); return true;
+    case SQLITE_FLOAT:
+        out = sqlite3_value_double(v);
+        if (std::isfinite(out)) return true;
+        [[fallthrough]];
+    default: return numeric_slow(v, role, covariate, position, out);
     }
 }
 
@@ -170,26 +176,36 @@ void fit_step(sqlite3_context* ctx, int argc, sqlite3_value** argv, bool weighte
         bool null_x = false, null_y, null_w = false;
         double w = 1.0;
         if (weighted) {
-            null_w = !numeric_arg(argv[0], "weight (argument 1)", w);
+            null_w = !numeric_arg(argv[0], "weight", 0, 1, w);
             if (!null_w && w < 0)
                 throw groupfit::error("weight (argument 1) must be >= 0, got " +
                                       groupfit::shortest_real(w));
         }
-        null_y = !numeric_arg(argv[lead - 2], "response (argument " + std::to_string(lead - 1) + ")",
-                              vals[p]);
+        null_y = !numeric_arg(argv[lead - 2], "response", 0, lead - 1, vals[p]);
         for (int j = 0; j < p; ++j)
-            if (!numeric_arg(argv[lead + j],
-                             "covariate " + std::to_string(j + 1) + " (argument " +
-                                 std::to_string(lead + j + 1) + ")",
-                             vals[j]))
-                null_x = true;
+            if (!numeric_arg(argv[lead + j], "covariate", j + 1, lead + j + 1, vals[j])) null_x = true;
         sqlite3_value* g = argv[lead - 1];
+        const int gtype = sqlite3_value_type(g);
         if (null_w) return s.drop(groupfit::drop_reason::null_weight);
         if (null_y) return s.drop(groupfit::drop_reason::null_response);
-        if (sqlite3_value_type(g) == SQLITE_NULL) return s.drop(groupfit::drop_reason::null_group);
+        if (gtype == SQLITE_NULL) return s.drop(groupfit::drop_reason::null_group);
         if (null_x) return s.drop(groupfit::drop_reason::null_covariate);
         if (w == 0.0) return s.drop(groupfit::drop_reason::zero_weight);
-        const std::size_t cell = s.cell_for(level_arg(g), lim);
+        std::size_t cell;
+        if (gtype == SQLITE_INTEGER) {
+            const sqlite3_int64 i = sqlite3_value_int64(g);
+            cell = s.cell_for(groupfit::level_kind::integer, &i, sizeof i, lim);
+        } else if (gtype == SQLITE_FLOAT) {
+            const double r = sqlite3_value_double(g);
+            cell = s.cell_for(groupfit::level_kind::real, &r, sizeof r, lim);
+        } else if (gtype == SQLITE_TEXT) {
+            const unsigned char* t = sqlite3_value_text(g);
+            if (!t) throw std::bad_alloc();
+            cell = s.cell_for(groupfit::level_kind::text, t, sqlite3_value_bytes(g), lim);
+        } else {
+            const void* b = sqlite3_value_blob(g);
+            cell = s.cell_for(groupfit::level_kind::blob, b ? b : "", sqlite3_value_bytes(g), lim);
+        }
         s.add_row(cell, vals, w);
     });
 }

@@ -37,4 +37,10 @@ double f_upper_p(double f, double df1, double df2) {
     return bm::cdf(bm::complement(d, f));
 }
 
+double f_quantile(double q, double df1, double df2) {
+    if (!(df1 > 0) || !(df2 > 0) || !(q > 0 && q < 1)) return nan;
+    bm::fisher_f_distribution<double, policy> d(df1, df2);
+    return bm::quantile(d, q);
+}
+
 }  // namespace groupfit::dist

@@ -14,5 +14,7 @@ double t_two_sided_p(double t, double df);
 double t_quantile(double q, double df);
 /// Upper-tail p-value of an F statistic with (df1, df2) degrees of freedom.
 double f_upper_p(double f, double df1, double df2);
+/// Quantile q of the F distribution with (df1, df2) degrees of freedom.
+double f_quantile(double q, double df1, double df2);
 
 }  // namespace groupfit::dist

@@ -219,6 +219,22 @@ double fit::level_sd(std::size_t i) const {
     return std::sqrt(ss / double(n - 1));
 }
 
+Eigen::VectorXd fit::at_values() const {
+    Eigen::VectorXd at = ox_;
+    for (const auto& [name, v] : opt_.at) {
+        int found = -1;
+        for (int j = 0; j < p_; ++j)
+            if (names_[j + 1] == name) found = j;
+        if (found < 0) {
+            std::vector<std::string> cov(names_.begin() + 1, names_.end());
+            throw error("options: at names an unknown covariate '" + name + "' (covariates: " +
+                        (cov.empty() ? std::string("none") : level_list(cov)) + ")");
+        }
+        at[found] = v;
+    }
+    return at;
+}
+
 double fit::sigma2() const {
     const double df = df_resid();
     return df > 0 ? sse_ / df : nan;

@@ -62,6 +62,9 @@ public:
     double level_sd(std::size_t i) const;
     /// Observed mean of covariate j over all rows used (weighted), raw scale.
     double covariate_mean(int j) const { return ox_[j]; }
+    /// Covariate values for adjusted means: the means, overridden by at=
+    /// (raw scale). Throws when at= names an unknown covariate.
+    Eigen::VectorXd at_values() const;
 
     // --- names
     const std::string& group_name() const { return names_[0]; }

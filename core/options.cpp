@@ -22,7 +22,32 @@ const char* coding_name(coding_kind k) {
     return "?";
 }
 
-const char* option_keys() { return "coding, base, order, conf, names, spacing, custom, ss"; }
+const char* adjust_name(adjust_kind k) {
+    switch (k) {
+    case adjust_kind::none: return "none";
+    case adjust_kind::bonferroni: return "bonferroni";
+    case adjust_kind::holm: return "holm";
+    case adjust_kind::sidak: return "sidak";
+    case adjust_kind::bh: return "bh";
+    case adjust_kind::tukey: return "tukey";
+    case adjust_kind::scheffe: return "scheffe";
+    case adjust_kind::dunnett: return "dunnett";
+    }
+    return "?";
+}
+
+const char* side_name(side_kind k) {
+    switch (k) {
+    case side_kind::two_sided: return "two_sided";
+    case side_kind::greater: return "greater";
+    case side_kind::less: return "less";
+    }
+    return "?";
+}
+
+const char* option_keys() {
+    return "coding, base, order, conf, names, spacing, custom, ss, at, adjust, vs, side";
+}
 
 namespace detail {
 
@@ -156,6 +181,39 @@ options parse_options(std::string_view text) {
             else if (v == "2") o.ss = 2;
             else if (v == "3") o.ss = 3;
             else throw error("options: ss must be one of 1, 2, 3 (not '" + v + "')");
+        } else if (key == "at") {
+            for (const auto& item : detail::split_list(raw, ',', false)) {
+                const auto colon = item.rfind(':');
+                if (colon == std::string::npos)
+                    throw error("options: at takes covariate:value pairs, for example "
+                                "at=distance_km:25, weight_kg:3 (not '" + item + "')");
+                auto name = detail::split_list(std::string_view(item).substr(0, colon), '\0', true);
+                const std::string value(detail::trim(std::string_view(item).substr(colon + 1)));
+                o.at.emplace_back(name.empty() ? std::string() : name[0], parse_number("at", value));
+            }
+        } else if (key == "adjust") {
+            std::string v = single();
+            static const adjust_kind all[] = {adjust_kind::none, adjust_kind::bonferroni,
+                                              adjust_kind::holm, adjust_kind::sidak,
+                                              adjust_kind::bh,   adjust_kind::tukey,
+                                              adjust_kind::scheffe, adjust_kind::dunnett};
+            bool ok = false;
+            for (auto k : all)
+                if (v == adjust_name(k)) o.adjust = k, ok = true;
+            if (!ok)
+                throw error("options: adjust must be one of none, bonferroni, holm, sidak, bh, "
+                            "tukey, scheffe, dunnett (not '" + v + "')");
+            o.has_adjust = true;
+        } else if (key == "vs") {
+            o.vs = single();
+            o.has_vs = true;
+        } else if (key == "side") {
+            std::string v = single();
+            if (v == "two_sided") o.side = side_kind::two_sided;
+            else if (v == "greater") o.side = side_kind::greater;
+            else if (v == "less") o.side = side_kind::less;
+            else throw error("options: side must be one of two_sided, greater, less (not '" + v + "')");
+            o.has_side = true;
         } else {
             throw error("options: unknown key '" + key + "' (keys: " + option_keys() + ")");
         }
@@ -169,6 +227,18 @@ options parse_options(std::string_view text) {
         o.coding != coding_kind::weighted_effect)
         throw error("options: base= applies to the dummy, effect and weighted_effect codings, "
                     "not to " + std::string(coding_name(o.coding)));
+    if (o.has_vs && !o.has_adjust) o.adjust = adjust_kind::dunnett;
+    if (o.has_vs && (o.adjust == adjust_kind::tukey))
+        throw error("options: adjust=tukey compares all pairs and cannot be combined with vs=; "
+                    "for comparisons with a control use adjust=dunnett (or none, bonferroni, "
+                    "holm, sidak, bh, scheffe)");
+    if (!o.has_vs && o.adjust == adjust_kind::dunnett)
+        throw error("options: adjust=dunnett compares every level with a control: name it with "
+                    "vs=LEVEL");
+    if (o.has_side && !o.has_vs)
+        throw error("options: side= applies to comparisons with a control (vs=LEVEL)");
+    if (o.has_side && o.adjust == adjust_kind::scheffe)
+        throw error("options: side= is not available with adjust=scheffe (two-sided only)");
     return o;
 }
 

@@ -29,6 +29,14 @@ const char* coding_name(coding_kind k);
 
 enum class spacing_kind { equal, values };
 
+/// Multiplicity adjustment of groupfit_pairs.
+enum class adjust_kind { none, bonferroni, holm, sidak, bh, tukey, scheffe, dunnett };
+const char* adjust_name(adjust_kind k);
+
+/// Alternative of a many-to-one comparison (treatment minus control).
+enum class side_kind { two_sided, greater, less };
+const char* side_name(side_kind k);
+
 struct options {
     coding_kind coding = coding_kind::dummy;
     std::string base;                          // empty: the coding's default level
@@ -39,6 +47,13 @@ struct options {
     spacing_kind spacing = spacing_kind::equal;
     std::vector<std::vector<double>> custom;   // rows of custom weights over levels
     int ss = 3;                                // sums-of-squares type 1, 2 or 3
+    std::vector<std::pair<std::string, double>> at;  // covariate name -> value
+    adjust_kind adjust = adjust_kind::tukey;   // pairs: tukey, or dunnett with vs=
+    bool has_adjust = false;
+    std::string vs;                            // pairs: the control level
+    bool has_vs = false;
+    side_kind side = side_kind::two_sided;
+    bool has_side = false;
 };
 
 /// Parses an options text. Throws groupfit::error with a message that names the

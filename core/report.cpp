@@ -41,12 +41,6 @@ std::string covariates_at(const fit& f, const Eigen::VectorXd& at) {
     return s;
 }
 
-Eigen::VectorXd covariate_means(const fit& f) {
-    Eigen::VectorXd at(f.covariates());
-    for (int j = 0; j < f.covariates(); ++j) at[j] = f.covariate_mean(j);
-    return at;
-}
-
 }  // namespace
 
 const std::vector<std::string>& coef_columns() {
@@ -114,7 +108,7 @@ table coef_report(const fit& f) {
 
 table levels_report(const fit& f) {
     table t{levels_columns(), {}};
-    const Eigen::VectorXd at = covariate_means(f);
+    const Eigen::VectorXd at = f.at_values();
     const double df = f.df_resid();
     const double q = dist::t_quantile(1.0 - (1.0 - f.opts().conf) / 2.0, df);
     for (std::size_t i = 0; i < f.levels(); ++i) {

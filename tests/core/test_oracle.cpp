@@ -18,13 +18,10 @@
 #include <gtest/gtest.h>
 
 #include <algorithm>
-#include <array>
-#include <cerrno>
 #include <cmath>
 #include <cstdint>
 #include <cstdio>
 #include <cstdlib>
-#include <cstring>
 #include <filesystem>
 #include <fstream>
 #include <map>
@@ -115,7 +112,6 @@ bool read_file(const fs::path& p, std::string& out) {
 bool parse_double(const std::string& s, double& v) {
     if (s.empty()) return false;
     char* end = nullptr;
-    errno = 0;
     v = std::strtod(s.c_str(), &end);
     return *end == '\0' && std::isfinite(v);
 }
@@ -434,6 +430,16 @@ struct checker {
                           << "; source: " << kSource << ")";
     }
 
+    // p-values: relative 1e-9, or absolute 1e-15 for tiny ones; a positive R
+    // p-value must also be positive here (an underflow to 0 would otherwise
+    // hide under the absolute floor).
+    void pvalue(const std::string& quantity, const std::string& term, double ours, double r) {
+        real("p_value", quantity, term, ours, r, 1e-15);
+        if (r > 0 && !(ours > 0))
+            ADD_FAILURE() << where(quantity, term) << ": ours " << fmt17(ours) << " but R's "
+                          << fmt17(r) << " is positive (source: " << kSource << ")";
+    }
+
     void exact(const std::string& kind, const std::string& quantity, const std::string& term,
                double ours, double r) {
         record(kind, ours == r ? 0.0 : INFINITY, ours == r ? 0.0 : INFINITY, where(quantity, term));
@@ -729,7 +735,7 @@ TEST_P(Oracle, MatchesR) {
                 const double ours = cell(coef, std::size_t(row), q);
                 const bool group_row = row < long(L);
                 if (q == "p_value") {
-                    ck.real("p_value", q, r->term, ours, r->value, 1e-15);
+                    ck.pvalue(q, r->term, ours, r->value);
                 } else {
                     const double scale = group_row ? gscale[q] : std::fabs(r->value);
                     ck.real(q, q, r->term, ours, r->value, 1e-12 * scale);
@@ -797,7 +803,7 @@ TEST_P(Oracle, MatchesR) {
                 } else if (q == "drop1_F") {
                     ck.real("drop1_F", q, t, cell(tests, row, "f_stat"), r->value, 0);
                 } else if (q == "drop1_p") {
-                    ck.real("p_value", q, t, cell(tests, row, "p_value"), r->value, 1e-15);
+                    ck.pvalue(q, t, cell(tests, row, "p_value"), r->value);
                 } else {
                     ADD_FAILURE() << "golden line " << r->line << ": unknown quantity '" << q << "'";
                 }
@@ -818,7 +824,7 @@ TEST_P(Oracle, MatchesR) {
             } else if (q == "f_den_df") {
                 ck.exact("count", q, t, cell(summ, 0, "df_resid"), r->value);
             } else if (q == "f_p") {
-                ck.real("p_value", q, t, cell(summ, 0, "p_value"), r->value, 1e-15);
+                ck.pvalue(q, t, cell(summ, 0, "p_value"), r->value);
             } else if (q == "loglik") {
                 ck.real("loglik", q, t, cell(summ, 0, "log_lik"), r->value, 0);
             } else if (q == "loglik_df") {
@@ -849,7 +855,7 @@ TEST_P(Oracle, MatchesR) {
                 if (q == "welch_F") ck.real("welch", q, t, cell(tests, row, "f_stat"), r->value, 0);
                 else if (q == "welch_num_df") ck.exact("count", q, t, cell(tests, row, "df"), r->value);
                 else if (q == "welch_den_df") ck.real("welch", q, t, cell(tests, row, "df_denom"), r->value, 0);
-                else if (q == "welch_p") ck.real("p_value", q, t, cell(tests, row, "p_value"), r->value, 1e-15);
+                else if (q == "welch_p") ck.pvalue(q, t, cell(tests, row, "p_value"), r->value);
                 else ADD_FAILURE() << "golden line " << r->line << ": unknown quantity '" << q << "'";
             } else {
                 ADD_FAILURE() << "golden line " << r->line << ": unknown quantity '" << q << "'";

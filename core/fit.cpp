@@ -19,17 +19,19 @@ std::string level_list(const std::vector<std::string>& labels) {
     return s;
 }
 
-/// A small square-root-free factor over k columns.
+/// A small square-root-free factor over k columns (T = double or ddouble).
+template <class T>
 struct factor {
     int k;
-    std::vector<double> d, rbar;
-    explicit factor(int k_) : k(k_), d(k_, 0.0), rbar(k_ * (k_ - 1) / 2, 0.0) {}
-    double include(std::vector<double>& row, double w, int first = 0) {
-        return detail::include_row(k, d.data(), rbar.data(), row.data(), w, first);
+    std::vector<T> d, rbar;
+    explicit factor(int k_) : k(k_), d(k_, T(0.0)), rbar(k_ * (k_ - 1) / 2, T(0.0)) {}
+    T include(std::vector<T>& row, T w, int first = 0) {
+        return detail::include_row<T>(k, d.data(), rbar.data(), row.data(), w, first);
     }
-    double r(int i, int j) const {
-        return i == j ? 1.0 : j > i ? rbar[detail::rbar_index(k, i, j)] : 0.0;
+    T r(int i, int j) const {
+        return i == j ? T(1.0) : j > i ? rbar[detail::rbar_index(k, i, j)] : T(0.0);
     }
+    T& at(int i, int j) { return rbar[detail::rbar_index(k, i, j)]; }
 };
 }  // namespace
 
@@ -70,115 +72,127 @@ fit::fit(const summary& s, const options& o) : s_(&s), opt_(o), p_(s.covariates(
     const int k = p_ + 2;
     w_.resize(L);
     for (std::size_t i = 0; i < L; ++i) {
-        w_[i] = s.cell_d(cell_[i])[0];
+        w_[i] = s.cell_d(cell_[i])[0].value();
         n_ += s.cell_rows(cell_[i]);
         wsum_ += w_[i];
     }
 
     // Shifted coordinates: origin = weighted grand mean of each column, summed
-    // relative to the first cell's origin so that large common offsets cancel
-    // exactly before any rounding.
+    // in double-double relative to the first cell's origin. Cell means relative
+    // to it are kept in double-double (xbd, ybd) for the estimates, and rounded
+    // (xb_, yb_) for standard errors and sums of squares.
     ox_.resize(p_);
     xb_.resize(L, p_);
     yb_.resize(L);
+    std::vector<std::vector<ddouble>> xbd(L, std::vector<ddouble>(p_));
+    std::vector<ddouble> ybd(L);
     for (int j = 0; j <= p_; ++j) {
         const double base = s.cell_origin(cell_[0])[j];
-        double acc = 0.0;
+        ddouble acc = 0.0;
+        for (std::size_t i = 0; i < L; ++i)
+            acc += s.cell_mean_from(cell_[i], j, base) * w_[i];
+        const double origin = (ddouble(base) + acc / ddouble(wsum_)).value();
         for (std::size_t i = 0; i < L; ++i) {
-            const std::size_t c = cell_[i];
-            acc += w_[i] * ((s.cell_origin(c)[j] - base) + s.cell_rbar(c)[detail::rbar_index(k, 0, j + 1)]);
-        }
-        const double origin = base + acc / wsum_;
-        for (std::size_t i = 0; i < L; ++i) {
-            const std::size_t c = cell_[i];
-            const double v =
-                (s.cell_origin(c)[j] - origin) + s.cell_rbar(c)[detail::rbar_index(k, 0, j + 1)];
-            if (j < p_) xb_(i, j) = v; else yb_[i] = v;
+            const ddouble v = s.cell_mean_from(cell_[i], j, origin);
+            if (j < p_) xbd[i][j] = v, xb_(i, j) = v.value();
+            else ybd[i] = v, yb_[i] = v.value();
         }
         if (j < p_) ox_[j] = origin; else oy_ = origin;
     }
 
-    // Pooled within-cell factor over [x, y].
-    factor within(p_ + 1);
-    std::vector<double> row(p_ + 1);
+    // Pooled within-cell factor over [x, y], in double-double.
+    factor<ddouble> within(p_ + 1);
+    std::vector<ddouble> row(p_ + 1);
     for (std::size_t i = 0; i < L; ++i) {
         const std::size_t c = cell_[i];
-        const double* d = s.cell_d(c);
-        const double* rb = s.cell_rbar(c);
+        const ddouble* d = s.cell_d(c);
+        const ddouble* rb = s.cell_rbar(c);
         for (int r = 1; r < k; ++r) {
-            if (d[r] == 0.0) continue;
+            if (d[r] == ddouble(0.0)) continue;
             for (int j = 1; j < k; ++j)
-                row[j - 1] = j < r ? 0.0 : j == r ? 1.0 : rb[detail::rbar_index(k, r, j)];
+                row[j - 1] = j < r ? ddouble(0.0) : j == r ? ddouble(1.0) : rb[detail::rbar_index(k, r, j)];
             within.include(row, d[r], r - 1);
         }
     }
-    Eigen::MatrixXd m = Eigen::MatrixXd::Zero(p_ + 1, p_ + 1);
+    within_ = Eigen::MatrixXd::Zero(p_ + 1, p_ + 1);
+    std::vector<double> colnorm2(p_ + 1, 0.0);
     for (int i = 0; i <= p_; ++i)
-        for (int j = i; j <= p_; ++j) m(i, j) = std::sqrt(within.d[i]) * within.r(i, j);
-    within_ = m;
+        for (int j = i; j <= p_; ++j) {
+            within_(i, j) = std::sqrt(within.d[i].value()) * within.r(i, j).value();
+            colnorm2[j] += within_(i, j) * within_(i, j);
+        }
 
-    // In-order Householder pass with aliasing (the factor is already upper
-    // triangular, but aliased columns shift the rows that later columns use).
+    // Aliasing, in column order (AS 274's treatment of singularities, Miller
+    // 1992): a covariate whose remaining weight d_j is below tolerance^2 of its
+    // squared norm is aliased; its row is cleared and folded into the later
+    // columns, so later estimates stay exact.
     alias_.assign(p_, false);
     alias_reason_.assign(p_, std::string());
     alias_delta_.assign(p_, Eigen::VectorXd());
     beta_ = Eigen::VectorXd::Constant(p_, nan);
-    int rank = 0;
     for (int j = 0; j < p_; ++j) {
-        const double colnorm = m.col(j).norm();
-        const double rest = m.col(j).segment(rank, p_ + 1 - rank).norm();
-        if (colnorm == 0.0 || rest <= alias_tolerance * colnorm) {
-            alias_[j] = true;
-            // Coefficients of this column on the kept columns before it.
-            Eigen::VectorXd rhs = m.col(j).head(rank);
-            Eigen::MatrixXd rk(rank, rank);
-            for (int a = 0; a < rank; ++a)
-                for (int b = 0; b < rank; ++b) rk(a, b) = m(a, kept_[b]);
-            alias_delta_[j] = rank ? Eigen::VectorXd(rk.triangularView<Eigen::Upper>().solve(rhs))
-                                   : Eigen::VectorXd();
-            std::string with;
-            for (int b = 0; b < rank; ++b)
-                if (std::fabs(alias_delta_[j][b]) > 0) with += ", " + names_[kept_[b] + 1];
-            alias_reason_[j] = colnorm == 0.0
-                                   ? "aliased: " + names_[j + 1] +
-                                         " does not vary within any level of " + names_[0]
-                                   : "aliased: " + names_[j + 1] +
-                                         " is a linear combination of the grouping" + with;
+        const double dj = within.d[j].value();
+        if (colnorm2[j] > 0 && dj > alias_tolerance * alias_tolerance * colnorm2[j]) {
+            kept_.push_back(j);
             continue;
         }
-        // Householder reflection on rows rank..p of columns j..p.
-        Eigen::VectorXd v = m.col(j).segment(rank, p_ + 1 - rank);
-        const double alpha = v[0] > 0 ? -rest : rest;
-        v[0] -= alpha;
-        const double vnorm2 = v.squaredNorm();
-        if (vnorm2 > 0)
-            for (int c = j; c <= p_; ++c) {
-                auto col = m.col(c).segment(rank, p_ + 1 - rank);
-                col -= v * (2.0 * v.dot(col) / vnorm2);
-            }
-        m.col(j).segment(rank + 1, p_ - rank).setZero();
-        m(rank, j) = alpha;
-        kept_.push_back(j);
-        ++rank;
+        alias_[j] = true;
+        // Coefficients of this column on the kept columns before it.
+        const int nk = static_cast<int>(kept_.size());
+        Eigen::VectorXd delta(nk);
+        for (int b = nk - 1; b >= 0; --b) {
+            ddouble v = within.r(kept_[b], j);
+            for (int c = b + 1; c < nk; ++c) v -= within.r(kept_[b], kept_[c]) * ddouble(delta[c]);
+            delta[b] = v.value();
+        }
+        alias_delta_[j] = delta;
+        std::string with;
+        for (int b = 0; b < nk; ++b)
+            if (std::fabs(delta[b]) > 0) with += ", " + names_[kept_[b] + 1];
+        alias_reason_[j] = colnorm2[j] == 0.0
+                               ? "aliased: " + names_[j + 1] + " does not vary within any level of " +
+                                     names_[0]
+                               : "aliased: " + names_[j + 1] +
+                                     " is a linear combination of the grouping" + with;
+        // Fold row j (its entries after column j) into the later rows.
+        std::vector<ddouble> rest(p_ + 1, ddouble(0.0));
+        for (int c = j + 1; c <= p_; ++c) rest[c] = within.r(j, c);
+        const ddouble wj = within.d[j];
+        within.d[j] = 0.0;
+        for (int c = j + 1; c <= p_; ++c) within.at(j, c) = 0.0;
+        if (wj.hi > 0) within.include(rest, wj, j + 1);
     }
+    const int rank = static_cast<int>(kept_.size());
     r_.resize(rank, rank);
     qty_.resize(rank);
     for (int a = 0; a < rank; ++a) {
-        for (int b = 0; b < rank; ++b) r_(a, b) = m(a, kept_[b]);
-        qty_[a] = m(a, p_);
+        const double sd = std::sqrt(within.d[kept_[a]].value());
+        for (int b = 0; b < rank; ++b) r_(a, b) = sd * within.r(kept_[a], kept_[b]).value();
+        qty_[a] = sd * within.r(kept_[a], p_).value();
     }
-    sse_ = m.col(p_).segment(rank, p_ + 1 - rank).squaredNorm();
-    if (rank) {
-        Eigen::VectorXd b = r_.triangularView<Eigen::Upper>().solve(qty_);
-        for (int a = 0; a < rank; ++a) beta_[kept_[a]] = b[a];
+    sse_ = within.d[p_].value();
+    // Slopes by back substitution on the unit triangle, in double-double.
+    std::vector<ddouble> betad(p_, ddouble(0.0));
+    for (int a = rank - 1; a >= 0; --a) {
+        ddouble v = within.r(kept_[a], p_);
+        for (int b = a + 1; b < rank; ++b) v -= within.r(kept_[a], kept_[b]) * betad[kept_[b]];
+        betad[kept_[a]] = v;
+        beta_[kept_[a]] = v.value();
     }
-    mu_ = yb_;
-    for (int a = 0; a < rank; ++a) mu_ -= xb_.col(kept_[a]) * beta_[kept_[a]];
+    betad_ = betad;
+    mud_.assign(L, ddouble(0.0));
+    mu_.resize(L);
+    for (std::size_t i = 0; i < L; ++i) {
+        ddouble v = ybd[i];
+        for (int a = 0; a < rank; ++a) v -= xbd[i][kept_[a]] * betad[kept_[a]];
+        mud_[i] = v;
+        mu_[i] = v.value();
+    }
 
     // Grouping sums of squares as sums of non-negative increments (AS 75 keeps
     // the residual sum of squares current as each row is included).
     {
-        factor between(2);
+        factor<double> between(2);
         std::vector<double> r2(2);
         for (std::size_t i = 0; i < L; ++i) {
             r2 = {1.0, yb_[i]};
@@ -186,7 +200,7 @@ fit::fit(const summary& s, const options& o) : s_(&s), opt_(o), p_(s.covariates(
         }
     }
     {
-        factor adj(rank + 2);  // [1, kept x, y]
+        factor<double> adj(rank + 2);  // [1, kept x, y]
         std::vector<double> r3(rank + 2);
         for (int a = 0; a <= rank; ++a) {  // the within factor reduced to kept columns
             r3[0] = 0.0;
@@ -208,12 +222,12 @@ double fit::level_sd(std::size_t i) const {
     const std::int64_t n = s_->cell_rows(c);
     if (n < 2) return nan;
     const int k = p_ + 2;
-    const double* d = s_->cell_d(c);
-    const double* rb = s_->cell_rbar(c);
+    const ddouble* d = s_->cell_d(c);
+    const ddouble* rb = s_->cell_rbar(c);
     double ss = 0.0;  // the response column of R below its first row
     for (int r = 1; r < k; ++r) {
-        const double v = r == k - 1 ? 1.0 : rb[detail::rbar_index(k, r, k - 1)];
-        ss += d[r] * v * v;
+        const double v = r == k - 1 ? 1.0 : rb[detail::rbar_index(k, r, k - 1)].value();
+        ss += d[r].value() * v * v;
     }
     // Weighted SD: sum w (y - ybar_w)^2 / (n - 1) with n the row count.
     return std::sqrt(ss / double(n - 1));
@@ -286,13 +300,16 @@ estimate fit::evaluate(const linear_function& f) const {
             return e;
         }
     }
-    double v = f.a.dot(mu_) + f.c;
+    // The value in double-double: large intercept offsets cancel exactly.
+    ddouble v = f.c;
+    for (Eigen::Index i = 0; i < f.a.size(); ++i)
+        if (f.a[i] != 0.0) v += mud_[i] * f.a[i];
     Eigen::VectorXd u = d_prime_a(f.a);
     for (std::size_t b = 0; b < kept_.size(); ++b) {
-        v += f.g[kept_[b]] * beta_[kept_[b]];
+        v += betad_[kept_[b]] * f.g[kept_[b]];
         u[b] -= f.g[kept_[b]];
     }
-    e.value = v;
+    e.value = v.value();
     const double s2 = sigma2();
     if (!std::isnan(s2)) e.std_error = std::sqrt(s2 * (f.a.cwiseAbs2().cwiseQuotient(w_).sum() + g_quadratic(u)));
     return e;

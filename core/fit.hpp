@@ -3,10 +3,10 @@
 // computed from a summary without revisiting rows.
 //
 // How: the rows of every cell's factor except the first (the within-cell part)
-// are merged into one pooled factor over [x, y]; an in-order Householder pass
-// over that small factor reveals the rank (a covariate whose remaining norm is
-// below `alias_tolerance` of its own norm is aliased and fixed at zero) and gives
-// beta and the residual sum of squares. The cell means then give
+// are merged into one pooled double-double factor over [x, y]; a pass over its
+// columns in order reveals the rank (a covariate whose remaining norm is below
+// `alias_tolerance` of its own norm is aliased and fixed at zero) and gives beta
+// and the residual sum of squares. The cell means then give
 // mu_g = ybar_g - xbar_g'beta. All of this is done in shifted coordinates (every
 // column minus its weighted grand mean) and only the reports move back to the
 // raw scale. Cost: O(cells x (p+2)^2 + p^3), independent of the number of rows.
@@ -133,6 +133,7 @@ private:
     Eigen::VectorXd qty_;                // kept
     Eigen::VectorXd beta_;               // p, NaN where aliased
     Eigen::VectorXd mu_;                 // L, shifted scale at x = origin
+    std::vector<ddouble> betad_, mud_;   // the same in double-double
     double sse_ = 0;
     double ss_group_seq_ = 0, ss_group_adj_ = 0;
     Eigen::MatrixXd within_;             // the pooled within factor R (p+1 square)

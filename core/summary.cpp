@@ -21,32 +21,38 @@ const char* drop_reason_name(drop_reason r) {
 
 namespace detail {
 
-double include_row(int k, double* d, double* rbar, double* row, double w, int first) {
+template <class T>
+T include_row(int k, T* d, T* rbar, T* row, T w, int first) {
     // AS 75 (Gentleman 1974), generalised so that the last column is a column
     // like the others: its d accumulates the residual sum of squares.
     for (int i = first; i < k; ++i) {
-        if (w == 0.0) return 0.0;
-        const double xi = row[i];
-        if (xi == 0.0) continue;
-        const double di = d[i];
-        const double dpi = di + w * xi * xi;
-        const double cbar = di / dpi;
-        const double sbar = w * xi / dpi;
+        if (w == T(0.0)) return T(0.0);
+        const T xi = row[i];
+        if (xi == T(0.0)) continue;
+        const T di = d[i];
+        const T wxi = w * xi;
+        const T dpi = di + wxi * xi;
         if (i == k - 1) {
             d[i] = dpi;
-            return w * xi * xi;
+            return wxi * xi;
         }
-        w *= cbar;
+        const T inv = T(1.0) / dpi;
+        const T cbar = di * inv;
+        const T sbar = wxi * inv;
+        w = w * cbar;
         d[i] = dpi;
-        double* r = rbar + rbar_index(k, i, i + 1);
+        T* r = rbar + rbar_index(k, i, i + 1);
         for (int j = i + 1; j < k; ++j, ++r) {
-            const double xj = row[j];
+            const T xj = row[j];
             row[j] = xj - xi * *r;
             *r = cbar * *r + sbar * xj;
         }
     }
-    return 0.0;
+    return T(0.0);
 }
+
+template double include_row<double>(int, double*, double*, double*, double, int);
+template ddouble include_row<ddouble>(int, ddouble*, ddouble*, ddouble*, ddouble, int);
 
 }  // namespace detail
 
@@ -67,7 +73,11 @@ std::int64_t summary::dropped_total() const {
 }
 
 double summary::cell_mean(std::size_t c, int j) const {
-    return cell_origin(c)[j] + cell_rbar(c)[detail::rbar_index(p_ + 2, 0, j + 1)];
+    return (ddouble(cell_origin(c)[j]) + cell_rbar(c)[detail::rbar_index(p_ + 2, 0, j + 1)]).value();
+}
+
+ddouble summary::cell_mean_from(std::size_t c, int j, double origin) const {
+    return dd::two_diff(cell_origin(c)[j], origin) + cell_rbar(c)[detail::rbar_index(p_ + 2, 0, j + 1)];
 }
 
 std::size_t summary::add_cell(const level& lv, std::string key, const limits& lim) {
@@ -79,7 +89,8 @@ std::size_t summary::add_cell(const level& lv, std::string key, const limits& li
     levels_.push_back(lv);
     n_.push_back(0);
     log_w_.push_back(0.0);
-    data_.resize(data_.size() + stride(), 0.0);
+    origin_.resize(origin_.size() + (p_ + 1), 0.0);
+    factor_.resize(factor_.size() + stride(), ddouble());
     index_.emplace(std::move(key), c);
     return c;
 }
@@ -128,10 +139,10 @@ void summary::add_row(std::size_t c, const double* values, double w) {
     double* o = origin(c);
     if (n_[c] == 0)
         for (int j = 0; j <= p_; ++j) o[j] = values[j];
-    double* row = scratch_.data();
+    ddouble* row = scratch_.data();
     row[0] = 1.0;
-    for (int j = 0; j <= p_; ++j) row[j + 1] = values[j] - o[j];
-    detail::include_row(k, d(c), rbar(c), row, w);
+    for (int j = 0; j <= p_; ++j) row[j + 1] = dd::two_diff(values[j], o[j]);
+    detail::include_row<ddouble>(k, d(c), rbar(c), row, ddouble(w));
     ++n_[c];
     if (weighted_) log_w_[c] += std::log(w);
 }
@@ -140,18 +151,18 @@ void summary::merge_cell(std::size_t into, const summary& from, std::size_t c) {
     const int k = p_ + 2;
     double* o = origin(into);
     const double* fo = from.cell_origin(c);
-    const double* fd = from.cell_d(c);
-    const double* fr = from.cell_rbar(c);
+    const ddouble* fd = from.cell_d(c);
+    const ddouble* fr = from.cell_rbar(c);
     if (n_[into] == 0)
         for (int j = 0; j <= p_; ++j) o[j] = fo[j];
-    double* row = scratch_.data();
+    ddouble* row = scratch_.data();
     for (int i = 0; i < k; ++i) {
-        if (fd[i] == 0.0) continue;
+        if (fd[i] == ddouble(0.0)) continue;
         for (int j = 0; j < k; ++j)
-            row[j] = j < i ? 0.0 : j == i ? 1.0 : fr[detail::rbar_index(k, i, j)];
+            row[j] = j < i ? ddouble(0.0) : j == i ? ddouble(1.0) : fr[detail::rbar_index(k, i, j)];
         if (i == 0)  // the first row carries the means: move them to our origin
-            for (int j = 1; j < k; ++j) row[j] += fo[j - 1] - o[j - 1];
-        detail::include_row(k, d(into), rbar(into), row, fd[i], i);
+            for (int j = 1; j < k; ++j) row[j] += dd::two_diff(fo[j - 1], o[j - 1]);
+        detail::include_row<ddouble>(k, d(into), rbar(into), row, fd[i], i);
     }
     n_[into] += from.n_[c];
     log_w_[into] += from.log_w_[c];
@@ -178,8 +189,8 @@ void summary::merge(const summary& other, const limits& lim) {
 //   | u64 total length in bytes, checksum included | u32 p | u32 cells
 //   | u64 dropped[5] | cells... | u64 FNV-1a checksum of all preceding bytes
 // cell: u8 kind | u32 key length | key bytes (int64 or double for numbers)
-//   | u64 rows | f64 log weight sum | f64 origin[p+1] | f64 d[p+2]
-//   | f64 rbar[(p+2)(p+1)/2]
+//   | u64 rows | f64 log weight sum | f64 origin[p+1] | dd d[p+2]
+//   | dd rbar[(p+2)(p+1)/2]        (dd = two f64, high part then low part)
 // ---------------------------------------------------------------------------
 namespace {
 
@@ -233,7 +244,7 @@ struct reader {
 std::string summary::serialize() const {
     std::string out;
     const int k = p_ + 2;
-    out.reserve(64 + cells() * (24 + 8 * stride()));
+    out.reserve(72 + cells() * (32 + 8 * (p_ + 1) + 16 * stride()));
     out.append(magic, 4);
     put<std::uint16_t>(out, format_version);
     put<std::uint16_t>(out, weighted_ ? 1 : 0);
@@ -256,8 +267,12 @@ std::string summary::serialize() const {
         }
         put<std::uint64_t>(out, static_cast<std::uint64_t>(n_[c]));
         put<double>(out, log_w_[c]);
-        const double* v = &data_[c * stride()];
-        for (std::size_t j = 0; j < stride(); ++j) put<double>(out, v[j]);
+        for (int j = 0; j <= p_; ++j) put<double>(out, cell_origin(c)[j]);
+        const ddouble* v = cell_d(c);
+        for (std::size_t j = 0; j < stride(); ++j) {
+            put<double>(out, v[j].hi);
+            put<double>(out, v[j].lo);
+        }
     }
     std::string len;
     put<std::uint64_t>(len, out.size() + 8);
@@ -337,12 +352,18 @@ summary summary::deserialize(std::string_view blob, const limits& lim) {
             throw error("not a groupfit model: a cell has an impossible row count");
         s.n_[cell] = static_cast<std::int64_t>(rows);
         s.log_w_[cell] = r.finite();
-        double* v = s.origin(cell);
-        for (std::size_t j = 0; j < s.stride(); ++j) v[j] = r.finite();
-        const double* dd = s.cell_d(cell);
+        for (int j = 0; j <= static_cast<int>(p); ++j) s.origin(cell)[j] = r.finite();
+        ddouble* v = s.d(cell);
+        for (std::size_t j = 0; j < s.stride(); ++j) {
+            const double hi = r.finite(), lo = r.finite();
+            if (std::fabs(lo) > std::fabs(hi) * 0x1p-52)
+                throw error("not a groupfit model: a stored double-double is not normalised");
+            v[j] = ddouble(hi, lo);
+        }
+        const ddouble* dv = s.cell_d(cell);
         for (int j = 0; j < k; ++j)
-            if (dd[j] < 0) throw error("not a groupfit model: a cell factor has a negative weight");
-        if (!(dd[0] > 0)) throw error("not a groupfit model: a cell has no weight");
+            if (dv[j].hi < 0) throw error("not a groupfit model: a cell factor has a negative weight");
+        if (!(dv[0].hi > 0)) throw error("not a groupfit model: a cell has no weight");
     }
     if (r.at != r.n) throw error("not a groupfit model: unexpected bytes after the last cell");
     return s;

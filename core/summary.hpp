@@ -14,6 +14,11 @@
 // Two summaries merge exactly (up to rounding): the rows of one factor are fed,
 // with their weights D[i], into the other. Memory is O(cells x (p+2)^2),
 // whatever the number of rows.
+//
+// D and Rbar are held in double-double (ddouble.hpp), and each shifted value
+// x - origin enters as an exact double-double difference, so the factor carries
+// about 106 bits: the rounding it adds is far below what the double input
+// itself carries, even for problems as ill-conditioned as NIST's Wampler5.
 #pragma once
 
 #include <array>
@@ -24,6 +29,7 @@
 #include <unordered_map>
 #include <vector>
 
+#include "ddouble.hpp"
 #include "level.hpp"
 
 namespace groupfit {
@@ -52,7 +58,9 @@ namespace detail {
 /// packed by rows) starting at column `first`. The row is overwritten. Returns
 /// the weighted squared residual the row adds to the last column, which is the
 /// increase of the residual sum of squares of the last column on the others.
-double include_row(int k, double* d, double* rbar, double* row, double w, int first = 0);
+/// T is double or ddouble.
+template <class T>
+T include_row(int k, T* d, T* rbar, T* row, T w, int first = 0);
 /// Index of rbar(i, j), j > i, in the packed upper triangle of a k-column factor.
 inline int rbar_index(int k, int i, int j) { return i * (2 * k - i - 1) / 2 + (j - i - 1); }
 }  // namespace detail
@@ -95,20 +103,22 @@ public:
     const level& cell_level(std::size_t c) const { return levels_[c]; }
     std::int64_t cell_rows(std::size_t c) const { return n_[c]; }
     double cell_log_weight(std::size_t c) const { return log_w_[c]; }
-    const double* cell_origin(std::size_t c) const { return &data_[c * stride()]; }  // p+1
-    const double* cell_d(std::size_t c) const { return cell_origin(c) + (p_ + 1); }  // p+2
-    const double* cell_rbar(std::size_t c) const { return cell_d(c) + (p_ + 2); }
+    const double* cell_origin(std::size_t c) const { return &origin_[c * (p_ + 1)]; }  // p+1
+    const ddouble* cell_d(std::size_t c) const { return &factor_[c * stride()]; }    // p+2
+    const ddouble* cell_rbar(std::size_t c) const { return cell_d(c) + (p_ + 2); }
     /// Mean of column j (0..p-1 covariates, p = response) in cell c.
     double cell_mean(std::size_t c, int j) const;
+    /// The same relative to `origin`: (cell origin - origin) + shifted mean.
+    ddouble cell_mean_from(std::size_t c, int j, double origin) const;
 
 private:
-    std::size_t stride() const {
+    std::size_t stride() const {  // ddouble entries of one cell's factor
         const std::size_t k = p_ + 2;
-        return (k - 1) + k + k * (k - 1) / 2;
+        return k + k * (k - 1) / 2;
     }
-    double* origin(std::size_t c) { return &data_[c * stride()]; }
-    double* d(std::size_t c) { return origin(c) + (p_ + 1); }
-    double* rbar(std::size_t c) { return d(c) + (p_ + 2); }
+    double* origin(std::size_t c) { return &origin_[c * (p_ + 1)]; }
+    ddouble* d(std::size_t c) { return &factor_[c * stride()]; }
+    ddouble* rbar(std::size_t c) { return d(c) + (p_ + 2); }
     std::size_t add_cell(const level& lv, std::string key, const limits& lim);
     void merge_cell(std::size_t into, const summary& from, std::size_t c);
 
@@ -117,7 +127,8 @@ private:
     std::vector<level> levels_;
     std::vector<std::int64_t> n_;
     std::vector<double> log_w_;
-    std::vector<double> data_;  // per cell: origin[p+1], d[p+2], rbar[(p+2)(p+1)/2]
+    std::vector<double> origin_;   // per cell: origin[p+1]
+    std::vector<ddouble> factor_;  // per cell: d[p+2], rbar[(p+2)(p+1)/2]
     struct key_hash {
         using is_transparent = void;
         std::size_t operator()(std::string_view k) const { return std::hash<std::string_view>{}(k); }
@@ -126,7 +137,7 @@ private:
     std::string last_key_;
     std::size_t last_cell_ = 0;
     std::array<std::int64_t, drop_reason_count> dropped_{};
-    std::vector<double> scratch_;
+    std::vector<ddouble> scratch_;
 };
 
 }  // namespace groupfit

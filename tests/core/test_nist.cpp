@@ -32,7 +32,6 @@
 #include <fstream>
 #include <iomanip>
 #include <iostream>
-#include <map>
 #include <regex>
 #include <sstream>
 #include <string>
@@ -456,10 +455,33 @@ const lls_case lls_cases[] = {
      "0.795851382172941E-03", "2162.43954511489", 6, 5},
 };
 
-/// Wampler1/2 fit exactly (certified SDs, residual SS and residual SD are 0,
-/// SOURCES.md). Their SDs are compared with an absolute bound relative to the
-/// scale of the data: the SD of y times this factor.
-constexpr double exact_fit_rel_bound = 1e-9;
+/// Wampler1/2 fit exactly: their certified SDs of estimates, residual SS and
+/// residual SD are 0 (NIST StRD; SOURCES.md says to compare them with an absolute
+/// tolerance). Bounds used here (brief: "an absolute bound like 1e-9 relative to
+/// the coefficient scale"): SD(Bj) <= 1e-9 * |certified Bj|; residual SD <=
+/// 1e-12 * max|y| (rounding y alone costs about 1.1e-16 * max|y|).
+constexpr double exact_fit_sd_rel = 1e-9;
+constexpr double exact_fit_rsd_rel = 1e-12;
+
+/// Smallest remaining-norm ratio of a covariate column in the one-cell factor:
+/// min over j of |R(j,j)| / ||R(:,j)|| over the centred covariate columns. The fit
+/// flags a covariate aliased when this is <= alias_tolerance (core/fit.hpp), so
+/// this is the margin before a covariate would be wrongly dropped.
+double alias_margin(const summary& s) {
+    const int p = s.covariates(), k = p + 2;
+    const ddouble* d = s.cell_d(0);
+    const ddouble* rb = s.cell_rbar(0);
+    double mn = 1.0;
+    for (int j = 1; j <= p; ++j) {
+        double col = 0.0;
+        for (int i = 1; i <= j; ++i) {
+            const double r = i == j ? 1.0 : rb[detail::rbar_index(k, i, j)].value();
+            col += d[i].value() * r * r;
+        }
+        mn = std::min(mn, col > 0 ? std::sqrt(d[j].value() / col) : 0.0);
+    }
+    return mn;
+}
 
 /// The covariate row x1..xp then y of one data row. Powers are formed the way
 /// SQL would form them from a REAL column: x*x*...*x in double, left to right.
@@ -484,11 +506,11 @@ void check_lls(const lls_case& c) {
     const std::size_t cols = c.kind == 1 ? 7 : 2;  // NIST: y, x (Longley: y, x1..x6)
     summary s(c.p, false);
     limits lim;
-    double ymin = INFINITY, ymax = -INFINITY;
+    double ymax = 0.0;  // max |y|, the scale of the exact-fit bounds
     for (std::size_t i = 0; i < file.rows.size(); ++i) {
         ASSERT_EQ(file.rows[i].size(), cols) << c.name << " data line " << file.first + i;
         const std::vector<double> v = lls_values(c, file.rows[i]);
-        ymin = std::min(ymin, v[c.p]), ymax = std::max(ymax, v[c.p]);
+        ymax = std::max(ymax, std::fabs(v[c.p]));
         // One constant level: the model is y = B0 + sum_j Bj xj + e.
         s.add_row(s.cell_for(level::from_integer(1), lim), v.data(), 1.0);
     }
@@ -512,8 +534,9 @@ void check_lls(const lls_case& c) {
     ASSERT_EQ(coef.rows.size(), std::size_t(c.p + 1)) << c.name << ": intercept + one row per covariate";
 
     const bool exact_fit = to_double(c.rsd) == 0.0;  // Wampler1/2
-    // Scale for the exact-fit absolute bounds: the spread of y.
-    const double yscale = ymax - ymin;
+    auto digits_abs = [](double v, double scale) {  // -log10(|v| / scale), capped
+        return std::isnan(v) ? 0.0 : v == 0.0 ? 15.0 : std::clamp(-std::log10(std::fabs(v) / scale), 0.0, 15.0);
+    };
 
     std::ostringstream line, detail;
     line << std::left << std::setw(9) << c.name;
@@ -530,10 +553,11 @@ void check_lls(const lls_case& c) {
                                    << est << " vs certified " << c.b[j] << " (NIST StRD)";
         double dsd;
         if (csd == 0.0) {
-            // Certified 0 (exact fit): absolute bound, relative to the data's scale.
-            dsd = std::isnan(se) ? 0.0 : se == 0.0 ? 15.0 : std::clamp(-std::log10(se / yscale), 0.0, 15.0);
-            EXPECT_LE(se, exact_fit_rel_bound * yscale)
-                << c.name << " SD(B" << j << "): certified 0 (NIST StRD); ours " << se;
+            // Certified 0 (exact fit): absolute bound relative to |certified Bj|.
+            dsd = digits_abs(se, std::fabs(cb));
+            EXPECT_LE(se, exact_fit_sd_rel * std::fabs(cb))
+                << c.name << " SD(B" << j << "): certified 0 (NIST StRD); ours " << se
+                << " > " << exact_fit_sd_rel << " * |B" << j << "|";
         } else {
             dsd = lre(se, csd);
             EXPECT_GE(dsd, c.need_stat) << c.name << " SD(B" << j << "): ours " << std::setprecision(17)
@@ -543,7 +567,7 @@ void check_lls(const lls_case& c) {
         detail << " B" << j << "=" << fmt(db) << "/" << fmt(dsd);
     }
     line << " coef(min)=" << fmt(min_b) << "(>=" << fmt(c.need_coef, 0) << ")"
-         << " SD(min)=" << fmt(min_sd) << (exact_fit ? "[abs/yrange]" : "") << "(>="
+         << " SD(min)=" << fmt(min_sd) << (exact_fit ? "[abs/|Bj|]" : "") << "(>="
          << fmt(c.need_stat, 0) << ")";
 
     // Residual SD, R2, regression and residual SS, F: NIST StRD certified.
@@ -552,12 +576,13 @@ void check_lls(const lls_case& c) {
     const double fst = cell(sum, 0, "f_stat");
     double d_rsd, d_ssres;
     if (exact_fit) {
-        // Certified 0: absolute bounds relative to the data's scale.
-        EXPECT_LE(rsd, exact_fit_rel_bound * yscale) << c.name << ": residual SD, certified 0 (NIST StRD)";
-        EXPECT_LE(f.sse(), std::pow(exact_fit_rel_bound * yscale, 2) * n)
-            << c.name << ": residual SS, certified 0 (NIST StRD)";
-        d_rsd = rsd == 0 ? 15.0 : std::clamp(-std::log10(rsd / yscale), 0.0, 15.0);
-        d_ssres = f.sse() == 0 ? 15.0 : std::clamp(-std::log10(f.sse() / (yscale * yscale)), 0.0, 15.0);
+        // Certified 0: absolute bounds relative to max|y|.
+        EXPECT_LE(rsd, exact_fit_rsd_rel * ymax)
+            << c.name << ": residual SD " << rsd << ", certified 0 (NIST StRD)";
+        EXPECT_LE(f.sse(), std::pow(exact_fit_rsd_rel * ymax, 2) * n)
+            << c.name << ": residual SS " << f.sse() << ", certified 0 (NIST StRD)";
+        d_rsd = digits_abs(rsd, ymax);
+        d_ssres = digits_abs(f.sse(), ymax * ymax);
         // F is certified as Infinity: ours must be huge or infinite (or NaN when SSE = 0).
         EXPECT_TRUE(std::isnan(fst) || fst > 1e12) << c.name << ": F certified Infinity; ours " << fst;
     } else {
@@ -574,8 +599,8 @@ void check_lls(const lls_case& c) {
     const double d_ssreg = lre(f.ss_model(), to_double(c.ss_reg));
     EXPECT_GE(d_ssreg, c.need_stat) << c.name << ": regression SS " << std::setprecision(17)
                                     << f.ss_model() << " vs certified " << c.ss_reg << " (NIST StRD)";
-    line << " residSD=" << fmt(d_rsd) << (exact_fit ? "[abs/yrange]" : "") << " R2=" << fmt(d_r2)
-         << " SSreg=" << fmt(d_ssreg) << " SSres=" << fmt(d_ssres) << (exact_fit ? "[abs/yrange^2]" : "");
+    line << " residSD=" << fmt(d_rsd) << (exact_fit ? "[abs/max|y|]" : "") << " R2=" << fmt(d_r2)
+         << " SSreg=" << fmt(d_ssreg) << " SSres=" << fmt(d_ssres) << (exact_fit ? "[abs/max|y|^2]" : "");
     if (c.fstat) {
         const double d_f = lre(fst, to_double(c.fstat));
         EXPECT_GE(d_f, c.need_stat) << c.name << ": F " << std::setprecision(17) << fst
@@ -585,6 +610,11 @@ void check_lls(const lls_case& c) {
         line << " F=inf(certified Infinity; ours " << fst << ")";
     }
     line << " (>=" << fmt(c.need_stat, 0) << ")";
+    // Diagnostic: how far the hardest covariate is from being flagged aliased.
+    std::ostringstream margin;
+    margin << std::setprecision(3) << alias_margin(s);
+    detail << "; alias margin min|R(j,j)|/||R(:,j)|| = " << margin.str() << " vs alias_tolerance "
+           << alias_tolerance;
     ::testing::Test::RecordProperty("coef_min_lre", fmt(min_b, 2));
     ::testing::Test::RecordProperty("sd_min_lre", fmt(min_sd, 2));
     report_lines().push_back(line.str());
@@ -625,7 +655,8 @@ TEST(NistReader, LreDefinition) {
     EXPECT_NEAR(lre(1.001, 1.0), 3.0, 1e-9);
     EXPECT_NEAR(lre(1e-6, 0.0), 6.0, 1e-9);
     EXPECT_EQ(lre(NAN, 1.0), 0.0);
-    EXPECT_EQ(lre(1.0 + 1e-17, 1.0), 15.0);
+    EXPECT_EQ(lre(1.0 + 4.4408920985006262e-16, 1.0), 15.0);  // 15.35, capped
+    EXPECT_NEAR(lre(-0.99, -1.0), 2.0, 1e-9);
 }
 
 // ---------------------------------------------------------------------------

@@ -24,28 +24,28 @@ namespace detail {
 template <class T>
 T include_row(int k, T* d, T* rbar, T* row, T w, int first) {
     // AS 75 (Gentleman 1974), generalised so that the last column is a column
-    // like the others: its d accumulates the residual sum of squares.
+    // like the others: its d accumulates the residual sum of squares. The
+    // update of Rbar is written r' = r + sbar * (x_j - x_i r), which equals
+    // AS 75's cbar r + sbar x_j (cbar = 1 - sbar x_i) with one product fewer.
     for (int i = first; i < k; ++i) {
         if (w == T(0.0)) return T(0.0);
         const T xi = row[i];
         if (xi == T(0.0)) continue;
-        const T di = d[i];
         const T wxi = w * xi;
-        const T dpi = di + wxi * xi;
+        const T dpi = d[i] + wxi * xi;
         if (i == k - 1) {
             d[i] = dpi;
             return wxi * xi;
         }
         const T inv = T(1.0) / dpi;
-        const T cbar = di * inv;
         const T sbar = wxi * inv;
-        w = w * cbar;
+        w = w * (d[i] * inv);
         d[i] = dpi;
         T* r = rbar + rbar_index(k, i, i + 1);
         for (int j = i + 1; j < k; ++j, ++r) {
-            const T xj = row[j];
-            row[j] = xj - xi * *r;
-            *r = cbar * *r + sbar * xj;
+            const T xj = row[j] - xi * *r;
+            row[j] = xj;
+            *r = *r + sbar * xj;
         }
     }
     return T(0.0);
@@ -140,9 +140,22 @@ void summary::add_row(std::size_t c, const double* values, double w) {
     if (n_[c] == 0)
         for (int j = 0; j <= p_; ++j) o[j] = values[j];
     ddouble* row = scratch_.data();
-    row[0] = 1.0;
-    for (int j = 0; j <= p_; ++j) row[j + 1] = dd::two_diff(values[j], o[j]);
-    detail::include_row<ddouble>(k, d(c), rbar(c), row, ddouble(w));
+    // Column 0 is the constant 1: the general step with x_i = 1 reduces to a
+    // running-mean update (d0 += w; r += (w / d0) (x - r)), done here directly.
+    ddouble* dc = d(c);
+    ddouble* r0 = rbar(c);
+    const ddouble d0 = dc[0];
+    const ddouble dp = d0 + ddouble(w);
+    const ddouble inv = ddouble(1.0) / dp;
+    const ddouble sbar = inv * w;
+    dc[0] = dp;
+    for (int j = 1; j < k; ++j) {
+        const ddouble xj = dd::two_diff(values[j - 1], o[j - 1]) - r0[j - 1];
+        row[j] = xj;
+        r0[j - 1] = r0[j - 1] + sbar * xj;
+    }
+    if (d0.hi != 0.0)  // the first row of a cell leaves nothing for the others
+        detail::include_row<ddouble>(k, dc, r0, row, d0 * inv * w, 1);
     ++n_[c];
     if (weighted_) log_w_[c] += std::log(w);
 }

@@ -1,7 +1,6 @@
 #include "coding.hpp"
 
 #include <cmath>
-#include <cstdio>
 
 #include "error.hpp"
 
@@ -10,11 +9,7 @@ namespace groupfit {
 namespace {
 constexpr std::size_t max_polynomial_levels = 500;
 
-std::string number(double v) {
-    char b[32];
-    std::snprintf(b, sizeof b, "%.6g", v);
-    return b;
-}
+std::string number(double v) { return short_real(v); }
 }  // namespace
 
 std::string degree_name(std::size_t d) {

@@ -44,7 +44,15 @@ std::strong_ordering compare(const level& a, const level& b);
 inline bool operator<(const level& a, const level& b) { return compare(a, b) < 0; }
 inline bool operator==(const level& a, const level& b) { return compare(a, b) == 0; }
 
-/// Shortest decimal text that reads back as exactly the same double.
+/// Shortest decimal text that reads back as exactly the same double. Locale
+/// independent (std::to_chars).
 std::string shortest_real(double v);
+/// A double with at most `digits` significant digits, for labels ("0.5*a").
+std::string short_real(double v, int digits = 6);
+/// Parses the whole text as a finite decimal number, ignoring surrounding
+/// ASCII white space; a leading '+' is allowed. Locale independent
+/// (std::from_chars); rejects empty text, hex, inf and nan. Returns false when
+/// the text is not such a number.
+bool parse_real(std::string_view text, double& out);
 
 }  // namespace groupfit

@@ -5,6 +5,7 @@
 #include <cstdlib>
 
 #include "error.hpp"
+#include "level.hpp"
 
 namespace groupfit {
 
@@ -108,10 +109,8 @@ std::vector<std::string> split_list(std::string_view text, char sep, bool unquot
 }  // namespace detail
 
 static double parse_number(std::string_view key, const std::string& v) {
-    const char* b = v.c_str();
-    char* e = nullptr;
-    double x = std::strtod(b, &e);
-    if (v.empty() || *e != '\0' || !std::isfinite(x))
+    double x = 0;
+    if (!parse_real(v, x))
         throw error("options: " + std::string(key) + " must be a number, not '" + v + "'");
     return x;
 }

@@ -197,13 +197,14 @@ void summary::merge(const summary& other, const limits& lim) {
 }
 
 // ---------------------------------------------------------------------------
-// BLOB format, version 1 (all integers and doubles little-endian):
+// BLOB format, version 2 (all integers and doubles little-endian):
 //   magic "GFm\x01" (4 bytes) | u16 version | u16 flags (bit 0: weighted)
 //   | u64 total length in bytes, checksum included | u32 p | u32 cells
 //   | u64 dropped[5] | cells... | u64 FNV-1a checksum of all preceding bytes
 // cell: u8 kind | u32 key length | key bytes (int64 or double for numbers)
 //   | u64 rows | f64 log weight sum | f64 origin[p+1] | dd d[p+2]
 //   | dd rbar[(p+2)(p+1)/2]        (dd = two f64, high part then low part)
+// Version 1 was the same with one f64 per d and rbar entry.
 // ---------------------------------------------------------------------------
 namespace {
 
@@ -299,6 +300,7 @@ summary summary::deserialize(std::string_view blob, const limits& lim) {
     reader r{reinterpret_cast<const unsigned char*>(blob.data()), blob.size()};
     if (blob.size() < 4 || std::memcmp(blob.data(), magic, 4) != 0)
         throw error("not a groupfit model: the BLOB does not start with the groupfit header");
+    constexpr std::size_t min_size = 4 + 2 + 2 + 8 + 4 + 4 + 8 * drop_reason_count + 8;
     r.at = 4;
     const auto version = r.get<std::uint16_t>();
     if (version > format_version)
@@ -306,6 +308,7 @@ summary summary::deserialize(std::string_view blob, const limits& lim) {
                     std::to_string(version) + "); this build reads versions up to " +
                     std::to_string(format_version));
     if (version == 0) throw error("not a groupfit model: format version 0 does not exist");
+    if (blob.size() < min_size) throw error("not a groupfit model: the BLOB is truncated");
     const auto flags = r.get<std::uint16_t>();
     if (flags > 1) throw error("not a groupfit model: unknown flags in the header");
     const auto length = r.get<std::uint64_t>();
@@ -323,8 +326,8 @@ summary summary::deserialize(std::string_view blob, const limits& lim) {
     r.n -= 8;  // the checksum is not data
     const auto p = r.get<std::uint32_t>();
     if (p > static_cast<std::uint32_t>(lim.max_covariates))
-        throw error("not a groupfit model: it has " + std::to_string(p) +
-                    " covariates, more than the limit of " + std::to_string(lim.max_covariates));
+        throw error("the model has " + std::to_string(p) + " covariates, more than the limit of " +
+                    std::to_string(lim.max_covariates));
     const auto ncell = r.get<std::uint32_t>();
     if (ncell > lim.max_levels)
         throw error("the model has " + std::to_string(ncell) + " levels, more than the limit of " +
@@ -368,7 +371,7 @@ summary summary::deserialize(std::string_view blob, const limits& lim) {
         for (int j = 0; j <= static_cast<int>(p); ++j) s.origin(cell)[j] = r.finite();
         ddouble* v = s.d(cell);
         for (std::size_t j = 0; j < s.stride(); ++j) {
-            const double hi = r.finite(), lo = r.finite();
+            const double hi = r.finite(), lo = version >= 2 ? r.finite() : 0.0;
             if (std::fabs(lo) > std::fabs(hi) * 0x1p-52)
                 throw error("not a groupfit model: a stored double-double is not normalised");
             v[j] = ddouble(hi, lo);

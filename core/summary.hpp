@@ -51,7 +51,9 @@ struct limits {
     int max_covariates = 32;
 };
 
-inline constexpr std::uint16_t format_version = 1;
+/// BLOB format written by this build. Version 1 (a double factor) is still
+/// read: its values become double-doubles with a zero low part.
+inline constexpr std::uint16_t format_version = 2;
 
 namespace detail {
 /// Include one weighted row (length k) into a square-root-free factor (d, rbar

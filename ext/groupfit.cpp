@@ -37,6 +37,7 @@
 #include <sqlite3ext.h>
 SQLITE_EXTENSION_INIT1
 
+#include <algorithm>
 #include <cerrno>
 #include <cmath>
 #include <cstdlib>
@@ -120,15 +121,13 @@ std::string arg_name(const char* role, int covariate, int position) {
     }
     case SQLITE_TEXT: {
         const char* s = reinterpret_cast<const char*>(sqlite3_value_text(v));
-        std::string t = s ? s : "";
-        char* end = nullptr;
-        const double x = std::strtod(t.c_str(), &end);
-        while (end && *end == ' ') ++end;
-        if (t.empty() || !end || *end != '\0' || end == t.c_str() || !std::isfinite(x) ||
-            t.find_first_of("xXnN") != std::string::npos)  // no hex, nan, inf spellings
-            throw groupfit::error(what + " must be a number, got text '" + t.substr(0, 40) + "'");
-        out = x;
-        return true;
+        const std::string_view t(s ? s : "", s ? sqlite3_value_bytes(v) : 0);
+        if (groupfit::parse_real(t, out)) return true;
+        // Quote at most 40 bytes, cut at a UTF-8 character boundary.
+        std::size_t cut = std::min<std::size_t>(t.size(), 40);
+        while (cut < t.size() && cut > 0 && (static_cast<unsigned char>(t[cut]) & 0xC0) == 0x80) --cut;
+        throw groupfit::error(what + " must be a number, got text '" + std::string(t.substr(0, cut)) +
+                              (cut < t.size() ? "...'" : "'"));
     }
     default: throw groupfit::error(what + " must be a number, got a blob");
     }
@@ -439,8 +438,9 @@ int report_filter(sqlite3_vtab_cursor* c, int idx, const char*, int argc, sqlite
             vt->config->lim);
         if (s.cells() == 0)
             throw groupfit::error("the model has no usable rows (" +
-                                  std::to_string(s.dropped_total()) + " rows were dropped for NULLs "
-                                  "or zero weights)");
+                                  std::to_string(s.dropped_total()) +
+                                  (s.dropped_total() == 1 ? " row was" : " rows were") +
+                                  " dropped for NULLs or zero weights)");
         const groupfit::fit f(s, o);
         cur->result = vt->kind->make(f, s);
     } catch (const std::bad_alloc&) {

@@ -1,10 +1,13 @@
 // Unit tests of the summary state: merging, the BLOB format, bad BLOBs.
 #include <gtest/gtest.h>
 
+#include <cmath>
+#include <fstream>
 #include <random>
 
 #include "error.hpp"
 #include "fit.hpp"
+#include "report.hpp"
 #include "summary.hpp"
 
 using namespace groupfit;
@@ -46,4 +49,53 @@ TEST(Summary, EveryCorruptedByteIsRejected) {
     }
     for (std::size_t n = 0; n < blob.size(); ++n)
         EXPECT_THROW(summary::deserialize(blob.substr(0, n), limits{}), error) << "length " << n;
+}
+
+namespace {
+std::string read_hex_file(const std::string& path) {
+    std::ifstream in(path);
+    std::string hex, out;
+    in >> hex;
+    for (std::size_t i = 0; i + 1 < hex.size(); i += 2)
+        out += static_cast<char>(std::stoi(hex.substr(i, 2), nullptr, 16));
+    return out;
+}
+
+// The rows of tests/golden_blobs/data.sql.
+summary golden_rows() {
+    struct r { const char* g; int gi; double y, x; };
+    const r rows[] = {{"north", 0, 12.5, 1.0}, {"north", 0, 14.25, 2.0}, {"north", 0, 13.0, 2.5},
+                      {"south", 0, 20.0, 1.5}, {"south", 0, 22.5, 3.0}, {"south", 0, 21.0, 2.0},
+                      {"east", 0, 9.75, 0.5},  {"east", 0, 11.0, 1.0},  {"east", 0, 12.5, 2.5},
+                      {"east", 0, 10.0, 1.25}, {nullptr, 7, 3.0, 1.0},  {nullptr, 7, 4.5, 2.0}};
+    summary s(1, false);
+    limits lim;
+    for (const auto& x : rows) {
+        const double v[2] = {x.x, x.y};
+        s.add_row(s.cell_for(x.g ? level::from_text(x.g) : level::from_integer(x.gi), lim), v, 1.0);
+    }
+    return s;
+}
+}  // namespace
+
+// Format stability: BLOBs written by earlier builds (tests/golden_blobs) still
+// decode and give the fit of their rows. Reference: a fresh summary of the
+// same rows (tolerance 1e-12 relative: version 1 stored a double factor).
+TEST(Summary, GoldenBlobsOfEveryFormatVersionStillLoad) {
+    const fit fresh(golden_rows(), parse_options("coding=effect"));
+    const table want = coef_report(fresh);
+    for (const char* name : {"model_v1.hex", "model_v2.hex"}) {
+        const std::string blob =
+            read_hex_file(std::string(GROUPFIT_SOURCE_DIR) + "/tests/golden_blobs/" + name);
+        ASSERT_FALSE(blob.empty()) << name;
+        const summary s = summary::deserialize(blob, limits{});
+        EXPECT_EQ(s.rows_used(), 12) << name;
+        const table got = coef_report(fit(s, parse_options("coding=effect")));
+        ASSERT_EQ(got.rows.size(), want.rows.size()) << name;
+        for (std::size_t r = 0; r < got.rows.size(); ++r)
+            for (int c : {3, 4}) {  // estimate, std_error
+                const double a = std::get<double>(got.rows[r][c]), b = std::get<double>(want.rows[r][c]);
+                EXPECT_NEAR(a, b, 1e-12 * std::fabs(b)) << name << " row " << r;
+            }
+    }
 }

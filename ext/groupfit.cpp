@@ -21,7 +21,8 @@
 **   groupfit_merge(model)                   union of models of one shape
 ** Table-valued functions (hidden arguments model, options):
 **   groupfit_coef, groupfit_levels, groupfit_deviations, groupfit_tests,
-**   groupfit_summary
+**   groupfit_summary, groupfit_pairs (model, options),
+**   groupfit_contrast (model, weights, options)
 ** Scalar:
 **   groupfit_limit(name [, value])          read or set a per-connection limit
 **                                           ('levels', 'covariates')
@@ -48,6 +49,7 @@ SQLITE_EXTENSION_INIT1
 #include <string>
 #include <vector>
 
+#include "compare.hpp"
 #include "error.hpp"
 #include "fit.hpp"
 #include "options.hpp"
@@ -284,25 +286,40 @@ void limit_func(sqlite3_context* ctx, int argc, sqlite3_value** argv) {
 struct report_kind {
     const char* name;
     const std::vector<std::string>& (*columns)();
-    groupfit::table (*make)(const groupfit::fit&, const summary&);
+    groupfit::table (*make)(const groupfit::fit&, const summary&, std::string_view weights);
+    bool takes_weights;  // hidden arguments: model, [weights,] options
 };
 
-groupfit::table make_coef(const groupfit::fit& f, const summary&) { return groupfit::coef_report(f); }
-groupfit::table make_levels(const groupfit::fit& f, const summary&) { return groupfit::levels_report(f); }
-groupfit::table make_deviations(const groupfit::fit& f, const summary&) {
+groupfit::table make_coef(const groupfit::fit& f, const summary&, std::string_view) {
+    return groupfit::coef_report(f);
+}
+groupfit::table make_levels(const groupfit::fit& f, const summary&, std::string_view) {
+    return groupfit::levels_report(f);
+}
+groupfit::table make_deviations(const groupfit::fit& f, const summary&, std::string_view) {
     return groupfit::deviations_report(f);
 }
-groupfit::table make_tests(const groupfit::fit& f, const summary&) { return groupfit::tests_report(f); }
-groupfit::table make_summary(const groupfit::fit& f, const summary& s) {
+groupfit::table make_tests(const groupfit::fit& f, const summary&, std::string_view) {
+    return groupfit::tests_report(f);
+}
+groupfit::table make_summary(const groupfit::fit& f, const summary& s, std::string_view) {
     return groupfit::summary_report(f, s);
+}
+groupfit::table make_pairs(const groupfit::fit& f, const summary&, std::string_view) {
+    return groupfit::pairs_report(f);
+}
+groupfit::table make_contrast(const groupfit::fit& f, const summary&, std::string_view w) {
+    return groupfit::contrast_report(f, w);
 }
 
 const report_kind reports[] = {
-    {"groupfit_coef", groupfit::coef_columns, make_coef},
-    {"groupfit_levels", groupfit::levels_columns, make_levels},
-    {"groupfit_deviations", groupfit::deviations_columns, make_deviations},
-    {"groupfit_tests", groupfit::tests_columns, make_tests},
-    {"groupfit_summary", groupfit::summary_columns, make_summary},
+    {"groupfit_coef", groupfit::coef_columns, make_coef, false},
+    {"groupfit_levels", groupfit::levels_columns, make_levels, false},
+    {"groupfit_deviations", groupfit::deviations_columns, make_deviations, false},
+    {"groupfit_tests", groupfit::tests_columns, make_tests, false},
+    {"groupfit_summary", groupfit::summary_columns, make_summary, false},
+    {"groupfit_pairs", groupfit::pairs_columns, make_pairs, false},
+    {"groupfit_contrast", groupfit::contrast_columns, make_contrast, true},
 };
 
 struct report_module_aux {
@@ -314,19 +331,20 @@ struct report_vtab {
     sqlite3_vtab base;
     const report_kind* kind;
     connection_config* config;
-    int ncol;  // report columns; model is column ncol, options ncol + 1
+    int ncol;   // report columns; the hidden arguments follow from column ncol
+    int nargs;  // 2 (model, options) or 3 (model, weights, options)
 };
 
 struct report_cursor {
     sqlite3_vtab_cursor base;
     groupfit::table result;
     std::size_t row = 0;
-    sqlite3_value* args[2] = {nullptr, nullptr};
+    sqlite3_value* args[3] = {nullptr, nullptr, nullptr};
 };
 
-/* idxNum bits: 1 = the model argument is bound (argv[0]),
-**              2 = the options argument is bound (next argv). */
-enum { idx_model = 1, idx_options = 2 };
+/* idxNum: bit a is set when hidden argument a (0 = model, then weights for
+** groupfit_contrast, then options) is bound; bound arguments arrive in argv in
+** that order. */
 
 void set_vtab_error(sqlite3_vtab* vt, const std::string& msg) {
     sqlite3_free(vt->zErrMsg);
@@ -337,7 +355,8 @@ int report_connect(sqlite3* db, void* aux, int, const char* const*, sqlite3_vtab
     auto* a = static_cast<report_module_aux*>(aux);
     std::string schema = "CREATE TABLE x(";
     for (const auto& c : a->kind->columns()) schema += c + ",";
-    schema += "model HIDDEN, options HIDDEN)";
+    schema += a->kind->takes_weights ? "model HIDDEN, weights HIDDEN, options HIDDEN)"
+                                     : "model HIDDEN, options HIDDEN)";
     int rc = sqlite3_declare_vtab(db, schema.c_str());
     if (rc != SQLITE_OK) return rc;
     auto* vt = static_cast<report_vtab*>(sqlite3_malloc(sizeof(report_vtab)));
@@ -346,6 +365,7 @@ int report_connect(sqlite3* db, void* aux, int, const char* const*, sqlite3_vtab
     vt->kind = a->kind;
     vt->config = a->config;
     vt->ncol = static_cast<int>(a->kind->columns().size());
+    vt->nargs = a->kind->takes_weights ? 3 : 2;
     sqlite3_vtab_config(db, SQLITE_VTAB_INNOCUOUS);
     *out = &vt->base;
     (void)err;
@@ -359,27 +379,30 @@ int report_disconnect(sqlite3_vtab* vt) {
 
 int report_best_index(sqlite3_vtab* tab, sqlite3_index_info* info) {
     auto* vt = reinterpret_cast<report_vtab*>(tab);
-    int where[2] = {-1, -1};
-    bool seen_unusable[2] = {false, false};
+    int where[3] = {-1, -1, -1};
+    bool seen_unusable[3] = {false, false, false};
     for (int i = 0; i < info->nConstraint; ++i) {
         const auto& c = info->aConstraint[i];
         const int arg = c.iColumn - vt->ncol;
-        if (arg < 0 || arg > 1 || c.op != SQLITE_INDEX_CONSTRAINT_EQ) continue;
+        if (arg < 0 || arg >= vt->nargs || c.op != SQLITE_INDEX_CONSTRAINT_EQ) continue;
         if (!c.usable) seen_unusable[arg] = true;
         else where[arg] = i;
     }
-    if (where[0] < 0) {
-        if (seen_unusable[0]) return SQLITE_CONSTRAINT;  // try another plan
-        set_vtab_error(tab, std::string(vt->kind->name) + ": the model argument is missing");
-        return SQLITE_ERROR;
-    }
-    if (where[1] < 0 && seen_unusable[1]) return SQLITE_CONSTRAINT;
+    for (int a = 0; a < vt->nargs; ++a)
+        if (where[a] < 0 && seen_unusable[a]) return SQLITE_CONSTRAINT;  // try another plan
+    const int required = vt->nargs == 3 ? 2 : 1;  // model, and weights when taken
+    for (int a = 0; a < required; ++a)
+        if (where[a] < 0) {
+            set_vtab_error(tab, std::string(vt->kind->name) + ": the " +
+                                    (a == 0 ? "model" : "weights") + " argument is missing");
+            return SQLITE_ERROR;
+        }
     int argv_index = 1, idx = 0;
-    for (int a = 0; a < 2; ++a) {
+    for (int a = 0; a < vt->nargs; ++a) {
         if (where[a] < 0) continue;
         info->aConstraintUsage[where[a]].argvIndex = argv_index++;
         info->aConstraintUsage[where[a]].omit = 1;
-        idx |= a == 0 ? idx_model : idx_options;
+        idx |= 1 << a;
     }
     info->idxNum = idx;
     info->estimatedCost = 10.0;
@@ -414,22 +437,32 @@ int report_filter(sqlite3_vtab_cursor* c, int idx, const char*, int argc, sqlite
     cur->result = groupfit::table{};
     cur->row = 0;
     clear_args(cur);
-    int next = 0;
-    sqlite3_value* model = (idx & idx_model) && next < argc ? argv[next++] : nullptr;
-    sqlite3_value* opts = (idx & idx_options) && next < argc ? argv[next++] : nullptr;
-    if (model) cur->args[0] = sqlite3_value_dup(model);
-    if (opts) cur->args[1] = sqlite3_value_dup(opts);
+    sqlite3_value* bound[3] = {nullptr, nullptr, nullptr};
+    for (int a = 0, next = 0; a < vt->nargs; ++a)
+        if ((idx & (1 << a)) && next < argc) {
+            bound[a] = argv[next++];
+            cur->args[a] = sqlite3_value_dup(bound[a]);
+        }
+    sqlite3_value* model = bound[0];
+    sqlite3_value* weights = vt->nargs == 3 ? bound[1] : nullptr;
+    sqlite3_value* opts = bound[vt->nargs - 1];
     if (!model || sqlite3_value_type(model) == SQLITE_NULL) return SQLITE_OK;  // no rows
     try {
         if (sqlite3_value_type(model) != SQLITE_BLOB)
             throw groupfit::error(std::string("model must be a BLOB made by groupfit(), got ") +
                                   type_name(sqlite3_value_type(model)));
-        std::string text;
+        std::string text, wtext;
         if (opts && sqlite3_value_type(opts) != SQLITE_NULL) {
             if (sqlite3_value_type(opts) != SQLITE_TEXT)
                 throw groupfit::error(std::string("options must be text, got ") +
                                       type_name(sqlite3_value_type(opts)));
             text = reinterpret_cast<const char*>(sqlite3_value_text(opts));
+        }
+        if (vt->nargs == 3) {
+            if (!weights || sqlite3_value_type(weights) != SQLITE_TEXT)
+                throw groupfit::error(std::string("weights must be text such as 'a=1, b=-1', got ") +
+                                      type_name(weights ? sqlite3_value_type(weights) : SQLITE_NULL));
+            wtext = reinterpret_cast<const char*>(sqlite3_value_text(weights));
         }
         const groupfit::options o = groupfit::parse_options(text);
         const summary s = summary::deserialize(
@@ -442,7 +475,7 @@ int report_filter(sqlite3_vtab_cursor* c, int idx, const char*, int argc, sqlite
                                   (s.dropped_total() == 1 ? " row was" : " rows were") +
                                   " dropped for NULLs or zero weights)");
         const groupfit::fit f(s, o);
-        cur->result = vt->kind->make(f, s);
+        cur->result = vt->kind->make(f, s, wtext);
     } catch (const std::bad_alloc&) {
         return SQLITE_NOMEM;
     } catch (const std::exception& e) {
@@ -466,7 +499,7 @@ int report_column(sqlite3_vtab_cursor* c, sqlite3_context* ctx, int col) {
     auto* cur = reinterpret_cast<report_cursor*>(c);
     auto* vt = reinterpret_cast<report_vtab*>(c->pVtab);
     if (col >= vt->ncol) {
-        sqlite3_value* a = cur->args[col - vt->ncol];
+        sqlite3_value* a = col - vt->ncol < vt->nargs ? cur->args[col - vt->ncol] : nullptr;
         if (a) sqlite3_result_value(ctx, a);
         return SQLITE_OK;
     }

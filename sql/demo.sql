@@ -111,3 +111,31 @@ SELECT c.label, round(c.estimate, 3) AS estimate, round(c.std_error, 3) AS std_e
                   FROM deliveries WHERE minutes IS NOT NULL AND carrier IS NOT NULL
                  GROUP BY depot_id, carrier)) AS w,
        groupfit_coef(w.model, 'coding=dummy') AS c;
+
+.print
+.print == 12. Which carriers differ, once distance and weight are controlled for? (groupfit_pairs, Tukey-Kramer)
+SELECT level_a, level_b, round(estimate, 2) AS difference, round(std_error, 3) AS std_error,
+       printf('%.3g', p_value) AS p_raw, printf('%.3g', p_adjusted) AS p_tukey,
+       round(ci_lower, 2) AS ci_lower, round(ci_upper, 2) AS ci_upper, interval
+  FROM groupfit_pairs((SELECT model FROM fits WHERE name = 'carrier+distance+weight'));
+
+.print
+.print == 13. Every carrier against amberpost, many-to-one (Dunnett, with the model's correlations)
+SELECT level_a, level_b, round(estimate, 2) AS difference, printf('%.3g', p_adjusted) AS p_dunnett,
+       round(ci_lower, 2) AS ci_lower, round(ci_upper, 2) AS ci_upper, method
+  FROM groupfit_pairs((SELECT model FROM fits WHERE name = 'carrier+distance+weight'),
+                      'vs=amberpost');
+
+.print
+.print == 14. Planned contrasts and their joint test (groupfit_contrast)
+SELECT contrast, kind, round(estimate, 3) AS estimate, round(std_error, 3) AS std_error,
+       df, round(f_stat, 2) AS f_stat, iif(p_value IS NULL, NULL, printf('%.3g', p_value)) AS p_value
+  FROM groupfit_contrast((SELECT model FROM fits WHERE name = 'carrier+distance+weight'),
+                         'copperfox=1, driftwing=-1; amberpost=0.5, brightcart=0.5, emberline=-1');
+
+.print
+.print == 15. Adjusted means for a 25 km, 3 kg delivery (at=)
+SELECT level AS carrier, round(adjusted_mean, 2) AS minutes, round(ci_lower, 2) AS ci_lower,
+       round(ci_upper, 2) AS ci_upper, covariates_at
+  FROM groupfit_levels((SELECT model FROM fits WHERE name = 'carrier+distance+weight'),
+                       'names=carrier, distance_km, weight_kg; at=distance_km:25, weight_kg:3');

@@ -8,6 +8,9 @@
 #include <cmath>
 #include <cstdint>
 #include <cstring>
+#include <fstream>
+#include <iterator>
+#include <unistd.h>
 #include <map>
 #include <set>
 #include <string>
@@ -359,7 +362,7 @@ TEST(Registration, FunctionsAreExactlyTheDocumentedOnes) {
     EXPECT_EQ(named.rows[4][0].s, "groupfit_weighted");
 }
 
-TEST(Registration, ModulesAreExactlyTheFiveReports) {
+TEST(Registration, ModulesAreExactlyTheSevenReports) {
     database db(false);
     auto before = db.query("SELECT name FROM pragma_module_list");
     db.load_module();
@@ -368,10 +371,11 @@ TEST(Registration, ModulesAreExactlyTheFiveReports) {
     for (const auto& r : before.rows) old.insert(r[0].s);
     for (const auto& r : after.rows)
         if (!old.count(r[0].s)) added.insert(r[0].s);
-    EXPECT_EQ(added, (std::set<std::string>{"groupfit_coef", "groupfit_deviations", "groupfit_levels",
-                                            "groupfit_summary", "groupfit_tests"}));
+    EXPECT_EQ(added, (std::set<std::string>{"groupfit_coef", "groupfit_contrast",
+                                            "groupfit_deviations", "groupfit_levels",
+                                            "groupfit_pairs", "groupfit_summary", "groupfit_tests"}));
     auto named = db.query("SELECT name FROM pragma_module_list WHERE name LIKE 'groupfit%'");
-    EXPECT_EQ(named.rows.size(), 5u);
+    EXPECT_EQ(named.rows.size(), 7u);
 }
 
 TEST(Registration, ReportColumnsAndHiddenArguments) {
@@ -1273,3 +1277,109 @@ TEST(Flags, LoadingTwiceKeepsWorking) {
 }
 
 }  // namespace
+
+// ------------------------------------------------------------------ scale
+
+namespace {
+// Reference for every check below: common practice — a model merged from
+// disjoint parts equals the one-pass model of all their rows.
+void expect_same_coef(database& db, const std::string& a, const std::string& b, double rel) {
+    auto ra = db.query("SELECT estimate, std_error FROM groupfit_coef(?1, 'coding=effect')", {blob{a}});
+    auto rb = db.query("SELECT estimate, std_error FROM groupfit_coef(?1, 'coding=effect')", {blob{b}});
+    ASSERT_EQ(ra.rows.size(), rb.rows.size());
+    for (std::size_t r = 0; r < ra.rows.size(); ++r)
+        for (int c = 0; c < 2; ++c)
+            EXPECT_TRUE(close(ra.rows[r][c].num(), rb.rows[r][c].num(), rel))
+                << "row " << r << " col " << c << ": " << describe(ra.rows[r][c]) << " vs "
+                << describe(rb.rows[r][c]);
+}
+
+std::string temp_db_path(const char* tag) {
+    return ::testing::TempDir() + "groupfit_shard_" + tag + "_" + std::to_string(::getpid()) + ".db";
+}
+}  // namespace
+
+// Shards in separate database files, ATTACHed to one connection, fitted
+// separately and merged, give the one-pass model to 1e-12 relative, in any
+// merge order.
+TEST(Scale, ShardsInAttachedFilesMergeToTheOnePassModel) {
+    database db;
+    const char* tags[] = {"a", "b", "c"};
+    for (int k = 0; k < 3; ++k) {
+        const std::string path = temp_db_path(tags[k]);
+        std::remove(path.c_str());
+        db.exec("ATTACH '" + path + "' AS s" + std::to_string(k));
+        db.exec("CREATE TABLE s" + std::to_string(k) + ".t(g TEXT, y REAL, x REAL)");
+        // Deterministic rows: shard k holds rows i with i % 3 == k.
+        db.exec("WITH RECURSIVE c(i) AS (SELECT 0 UNION ALL SELECT i + 1 FROM c WHERE i < 2999) "
+                "INSERT INTO s" + std::to_string(k) + ".t SELECT 'g' || (i * 7 % 5), "
+                "(i * 7919 % 1000) / 10.0 + (i * 7 % 5), (i * 104729 % 997) / 100.0 "
+                "FROM c WHERE i % 3 = " + std::to_string(k));
+    }
+    const std::string one_pass = db.model(
+        "SELECT groupfit(y, g, x) FROM (SELECT * FROM s0.t UNION ALL SELECT * FROM s1.t "
+        "UNION ALL SELECT * FROM s2.t)");
+    for (const char* order : {"0, 1, 2", "2, 0, 1", "1, 2, 0"}) {
+        std::string sql = "WITH parts(k, m) AS (SELECT 0, groupfit(y, g, x) FROM s0.t UNION ALL "
+                          "SELECT 1, groupfit(y, g, x) FROM s1.t UNION ALL SELECT 2, groupfit(y, g, x) "
+                          "FROM s2.t) SELECT groupfit_merge(m) FROM (SELECT m FROM parts ORDER BY "
+                          "instr('" + std::string(order) + "', k))";
+        expect_same_coef(db, db.model(sql), one_pass, 1e-12);
+    }
+    for (int k = 0; k < 3; ++k) {
+        db.exec("DETACH s" + std::to_string(k));
+        std::remove(temp_db_path(tags[k]).c_str());
+    }
+}
+
+// The level cap stops a 100,000-level grouping with a clear error before
+// memory grows; the cap is adjustable per connection.
+TEST(Scale, HundredThousandLevelsHitTheCapUnlessRaised) {
+    database db;
+    const std::string q =
+        "WITH RECURSIVE c(i) AS (SELECT 1 UNION ALL SELECT i + 1 FROM c WHERE i < 100000) "
+        "SELECT length(groupfit(i % 7, i)) FROM c";
+    EXPECT_EQ(db.error(q),
+              "groupfit: too many levels in the grouping argument: the limit is 50000 (raise it "
+              "with groupfit_limit('levels', N))");
+    EXPECT_EQ(db.scalar("SELECT groupfit_limit('levels', 200000)").i, 50000);
+    EXPECT_GT(db.scalar(q).i, 100000);
+}
+
+// A merge over models of mismatched shape inside a GROUP BY fails for the
+// segment that mixes them, with the shape named.
+TEST(Scale, MismatchedMergeInsideGroupByIsAnError) {
+    database db;
+    make_small(db);
+    EXPECT_EQ(db.error("SELECT seg, groupfit_merge(m) FROM ("
+                       "SELECT 1 AS seg, groupfit(y, g) AS m FROM t UNION ALL "
+                       "SELECT 2, groupfit(y, g) FROM t UNION ALL "
+                       "SELECT 2, groupfit(y, g, x) FROM t) GROUP BY seg"),
+              "groupfit_merge: models differ in shape: 0 covariates vs 1");
+}
+
+// Models from different format versions merge: the golden version-1 BLOB of
+// tests/golden_blobs merged with a fresh version-2 model of the same rows
+// equals the model of the rows taken twice.
+TEST(Scale, ModelsFromDifferentFormatVersionsMerge) {
+    database db;
+    std::ifstream data(std::string(GROUPFIT_SOURCE_DIR) + "/tests/golden_blobs/data.sql");
+    std::string sql((std::istreambuf_iterator<char>(data)), std::istreambuf_iterator<char>());
+    ASSERT_FALSE(sql.empty());
+    db.exec(sql);
+    std::ifstream hex(std::string(GROUPFIT_SOURCE_DIR) + "/tests/golden_blobs/model_v1.hex");
+    std::string v1hex;
+    hex >> v1hex;
+    ASSERT_FALSE(v1hex.empty());
+    const std::string merged = db.model(
+        "SELECT groupfit_merge(m) FROM (SELECT ?1 AS m UNION ALL SELECT groupfit(y, g, x) FROM t)",
+        {blob{[&] {
+            std::string b;
+            for (std::size_t i = 0; i + 1 < v1hex.size(); i += 2)
+                b += static_cast<char>(std::stoi(v1hex.substr(i, 2), nullptr, 16));
+            return b;
+        }()}});
+    const std::string twice = db.model(
+        "SELECT groupfit(y, g, x) FROM (SELECT * FROM t UNION ALL SELECT * FROM t)");
+    expect_same_coef(db, merged, twice, 1e-12);
+}

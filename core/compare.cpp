@@ -339,7 +339,7 @@ table contrast_report(const fit& f, std::string_view weights) {
     } else {
         note = text("no test: a contrast has no standard error");
     }
-    t.rows.push_back({text("joint test of " + std::to_string(n) + " row(s)"), text("joint F test"),
+    t.rows.push_back({text("joint: all " + std::to_string(n) + (n == 1 ? " row is zero" : " rows are zero")), text("joint F test"),
                       value{}, value{}, value{}, rk, df > 0 ? num(df) : value{}, fs, p, value{},
                       value{}, note});
     return t;

@@ -158,9 +158,9 @@ void fit_step(sqlite3_context* ctx, int argc, sqlite3_value** argv, bool weighte
     const char* fn = weighted ? "groupfit_weighted" : "groupfit";
     guarded(ctx, fn, [&] {
         const int lead = weighted ? 3 : 2;
-        if (argc < lead)
-            throw groupfit::error(weighted ? "needs at least (weight, response, grouping)"
-                                           : "needs at least (response, grouping)");
+        if (argc < lead && weighted)
+            throw groupfit::error("needs at least (weight, response, grouping)");
+        if (argc < lead) throw groupfit::error("needs at least (response, grouping)");
         const int p = argc - lead;
         const auto& lim = config_of(ctx)->lim;
         if (p > lim.max_covariates)

@@ -1,5 +1,6 @@
 #include "summary.hpp"
 
+#include <algorithm>
 #include <bit>
 #include <cmath>
 #include <cstring>
@@ -160,12 +161,11 @@ void summary::add_row(std::size_t c, const double* values, double w) {
     if (weighted_) log_w_[c] += std::log(w);
 }
 
-void summary::merge_cell(std::size_t into, const summary& from, std::size_t c) {
+void summary::merge_factor(std::size_t into, const double* fo, const ddouble* fd,
+                           std::int64_t rows, double log_w) {
     const int k = p_ + 2;
     double* o = origin(into);
-    const double* fo = from.cell_origin(c);
-    const ddouble* fd = from.cell_d(c);
-    const ddouble* fr = from.cell_rbar(c);
+    const ddouble* fr = fd + k;
     if (n_[into] == 0)
         for (int j = 0; j <= p_; ++j) o[j] = fo[j];
     ddouble* row = scratch_.data();
@@ -177,8 +177,8 @@ void summary::merge_cell(std::size_t into, const summary& from, std::size_t c) {
             for (int j = 1; j < k; ++j) row[j] += dd::two_diff(fo[j - 1], o[j - 1]);
         detail::include_row<ddouble>(k, d(into), rbar(into), row, fd[i], i);
     }
-    n_[into] += from.n_[c];
-    log_w_[into] += from.log_w_[c];
+    n_[into] += rows;
+    log_w_[into] += log_w;
 }
 
 void summary::merge(const summary& other, const limits& lim) {
@@ -191,7 +191,7 @@ void summary::merge(const summary& other, const limits& lim) {
         std::string key = other.levels_[c].key();
         auto it = index_.find(key);
         std::size_t into = it != index_.end() ? it->second : add_cell(other.levels_[c], key, lim);
-        merge_cell(into, other, c);
+        merge_factor(into, other.cell_origin(c), other.cell_d(c), other.n_[c], other.log_w_[c]);
     }
     for (int r = 0; r < drop_reason_count; ++r) dropped_[r] += other.dropped_[r];
 }
@@ -296,7 +296,9 @@ std::string summary::serialize() const {
     return out;
 }
 
-summary summary::deserialize(std::string_view blob, const limits& lim) {
+template <class OnHeader, class OnCell>
+void summary::parse_blob(std::string_view blob, const limits& lim, OnHeader&& on_header,
+                         OnCell&& on_cell) {
     reader r{reinterpret_cast<const unsigned char*>(blob.data()), blob.size()};
     if (blob.size() < 4 || std::memcmp(blob.data(), magic, 4) != 0)
         throw error("not a groupfit model: the BLOB does not start with the groupfit header");
@@ -332,57 +334,105 @@ summary summary::deserialize(std::string_view blob, const limits& lim) {
     if (ncell > lim.max_levels)
         throw error("the model has " + std::to_string(ncell) + " levels, more than the limit of " +
                     std::to_string(lim.max_levels));
-    summary s(static_cast<int>(p), flags & 1);
-    for (auto& v : s.dropped_) {
+    std::array<std::int64_t, drop_reason_count> dropped{};
+    for (auto& v : dropped) {
         v = static_cast<std::int64_t>(r.get<std::uint64_t>());
         if (v < 0) throw error("not a groupfit model: a row count is out of range");
     }
+    on_header(static_cast<int>(p), (flags & 1) != 0, dropped);
     const int k = static_cast<int>(p) + 2;
+    const std::size_t stride = k + k * (k - 1) / 2;
+    std::vector<double> origin(p + 1);
+    std::vector<ddouble> fac(stride);
     for (std::uint32_t c = 0; c < ncell; ++c) {
         const auto kind = r.get<std::uint8_t>();
         const auto klen = r.get<std::uint32_t>();
-        level lv;
+        std::int64_t ival = 0;
+        double rval = 0;
+        std::string_view bytes;
         if (kind == 1 || kind == 2) {
             if (klen != 8) throw error("not a groupfit model: a numeric level has a bad size");
             if (kind == 1) {
-                lv = level::from_integer(r.get<std::int64_t>());
+                ival = r.get<std::int64_t>();
             } else {
-                double v = r.finite();
-                lv = level::from_real(v);
-                if (lv.kind != level_kind::real)
+                rval = r.finite();
+                if (level::from_real(rval).kind != level_kind::real)
                     throw error("not a groupfit model: a real level holds an integer");
             }
         } else if (kind == 3 || kind == 4) {
             r.need(klen);
-            std::string_view b(reinterpret_cast<const char*>(r.p + r.at), klen);
+            bytes = std::string_view(reinterpret_cast<const char*>(r.p + r.at), klen);
             r.at += klen;
-            lv = kind == 3 ? level::from_text(b) : level::from_blob(b);
         } else {
             throw error("not a groupfit model: unknown level type " + std::to_string(kind));
         }
-        std::string key = lv.key();
-        if (s.index_.count(key)) throw error("not a groupfit model: a level appears twice");
-        const std::size_t cell = s.add_cell(lv, std::move(key), lim);
         const auto rows = r.get<std::uint64_t>();
         if (rows == 0 || rows > (std::uint64_t(1) << 62))
             throw error("not a groupfit model: a cell has an impossible row count");
-        s.n_[cell] = static_cast<std::int64_t>(rows);
-        s.log_w_[cell] = r.finite();
-        for (int j = 0; j <= static_cast<int>(p); ++j) s.origin(cell)[j] = r.finite();
-        ddouble* v = s.d(cell);
-        for (std::size_t j = 0; j < s.stride(); ++j) {
+        const double log_w = r.finite();
+        for (auto& v : origin) v = r.finite();
+        for (std::size_t j = 0; j < stride; ++j) {
             const double hi = r.finite(), lo = version >= 2 ? r.finite() : 0.0;
             if (std::fabs(lo) > std::fabs(hi) * 0x1p-52)
                 throw error("not a groupfit model: a stored double-double is not normalised");
-            v[j] = ddouble(hi, lo);
+            fac[j] = ddouble(hi, lo);
         }
-        const ddouble* dv = s.cell_d(cell);
         for (int j = 0; j < k; ++j)
-            if (dv[j].hi < 0) throw error("not a groupfit model: a cell factor has a negative weight");
-        if (!(dv[0].hi > 0)) throw error("not a groupfit model: a cell has no weight");
+            if (fac[j].hi < 0) throw error("not a groupfit model: a cell factor has a negative weight");
+        if (!(fac[0].hi > 0)) throw error("not a groupfit model: a cell has no weight");
+        const level_kind lk = static_cast<level_kind>(kind);
+        const void* data = kind == 1 ? static_cast<const void*>(&ival)
+                           : kind == 2 ? static_cast<const void*>(&rval)
+                                       : static_cast<const void*>(bytes.data());
+        on_cell(lk, data, kind <= 2 ? std::size_t(8) : bytes.size(), static_cast<std::int64_t>(rows),
+                log_w, origin.data(), fac.data());
     }
     if (r.at != r.n) throw error("not a groupfit model: unexpected bytes after the last cell");
+}
+
+summary summary::deserialize(std::string_view blob, const limits& lim) {
+    summary s;
+    parse_blob(
+        blob, lim,
+        [&](int p, bool weighted, const std::array<std::int64_t, drop_reason_count>& dropped) {
+            s = summary(p, weighted);
+            s.dropped_ = dropped;
+        },
+        [&](level_kind kind, const void* data, std::size_t len, std::int64_t rows, double log_w,
+            const double* origin, const ddouble* fac) {
+            const std::size_t before = s.cells();
+            const std::size_t cell = s.cell_for(kind, data, len, lim);
+            if (s.cells() == before) throw error("not a groupfit model: a level appears twice");
+            s.n_[cell] = rows;
+            s.log_w_[cell] = log_w;
+            std::copy(origin, origin + s.p_ + 1, s.origin(cell));
+            std::copy(fac, fac + s.stride(), s.d(cell));
+        });
     return s;
+}
+
+void summary::merge_blob(std::string_view blob, const limits& lim) {
+    // Cells of this BLOB already merged, to reject a level that appears twice.
+    std::vector<std::uint8_t> seen;
+    parse_blob(
+        blob, lim,
+        [&](int p, bool weighted, const std::array<std::int64_t, drop_reason_count>& dropped) {
+            if (p != p_)
+                throw error("models differ in shape: " + std::to_string(p_) + " covariates vs " +
+                            std::to_string(p));
+            if (weighted != weighted_)
+                throw error("models differ in kind: one is weighted (groupfit_weighted) and one is not");
+            for (int r = 0; r < drop_reason_count; ++r) dropped_[r] += dropped[r];
+            seen.assign(cells(), 0);
+        },
+        [&](level_kind kind, const void* data, std::size_t len, std::int64_t rows, double log_w,
+            const double* origin, const ddouble* fac) {
+            const std::size_t cell = cell_for(kind, data, len, lim);
+            if (cell >= seen.size()) seen.resize(cell + 1, 0);
+            if (seen[cell]) throw error("not a groupfit model: a level appears twice");
+            seen[cell] = 1;
+            merge_factor(cell, origin, fac, rows, log_w);
+        });
 }
 
 }  // namespace groupfit

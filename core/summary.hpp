@@ -97,6 +97,11 @@ public:
     /// level cap would be exceeded.
     void merge(const summary& other, const limits& lim);
 
+    /// Merges a model BLOB straight into this summary, without building a
+    /// second summary (what groupfit_merge does per row). Throws like
+    /// deserialize and merge; after a throw this summary is unspecified.
+    void merge_blob(std::string_view blob, const limits& lim);
+
     std::string serialize() const;
     /// Parses a model BLOB; throws groupfit::error naming what is wrong.
     static summary deserialize(std::string_view blob, const limits& lim);
@@ -122,7 +127,11 @@ private:
     ddouble* d(std::size_t c) { return &factor_[c * stride()]; }
     ddouble* rbar(std::size_t c) { return d(c) + (p_ + 2); }
     std::size_t add_cell(const level& lv, std::string key, const limits& lim);
-    void merge_cell(std::size_t into, const summary& from, std::size_t c);
+    void merge_factor(std::size_t into, const double* origin, const ddouble* factor,
+                      std::int64_t rows, double log_w);
+    template <class OnHeader, class OnCell>
+    static void parse_blob(std::string_view blob, const limits& lim, OnHeader&& on_header,
+                           OnCell&& on_cell);
 
     int p_ = 0;
     bool weighted_ = false;

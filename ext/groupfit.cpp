@@ -226,13 +226,12 @@ void merge_step(sqlite3_context* ctx, int, sqlite3_value** argv) {
             throw groupfit::error(std::string("model must be a BLOB made by groupfit(), got ") +
                                   type_name(sqlite3_value_type(v)));
         const auto& lim = config_of(ctx)->lim;
-        summary in = summary::deserialize(
-            std::string_view(static_cast<const char*>(sqlite3_value_blob(v)), sqlite3_value_bytes(v)),
-            lim);
+        const std::string_view blob(static_cast<const char*>(sqlite3_value_blob(v)),
+                                    sqlite3_value_bytes(v));
         auto* st = static_cast<agg_state*>(sqlite3_aggregate_context(ctx, sizeof(agg_state)));
         if (!st) throw std::bad_alloc();
-        if (!st->s) st->s = new summary(std::move(in));
-        else st->s->merge(in, lim);
+        if (!st->s) st->s = new summary(summary::deserialize(blob, lim));
+        else st->s->merge_blob(blob, lim);  // no intermediate summary per row
     });
 }
 

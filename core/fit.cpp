@@ -315,6 +315,27 @@ estimate fit::evaluate(const linear_function& f) const {
     return e;
 }
 
+estimate fit::level_mean_at(std::size_t i, const Eigen::VectorXd& at) const {
+    for (int j = 0; j < p_; ++j)
+        if (alias_[j]) {  // the general path decides estimability
+            Eigen::VectorXd k = Eigen::VectorXd::Zero(levels());
+            k[i] = 1.0;
+            return evaluate(level_combination(k, at));
+        }
+    ddouble v = mud_[i] + ddouble(oy_);
+    Eigen::VectorXd u(kept_.size());
+    for (std::size_t b = 0; b < kept_.size(); ++b) {
+        const int j = kept_[b];
+        const double g = at[j] - ox_[j];
+        v += betad_[j] * g;
+        u[b] = xb_(i, j) - g;
+    }
+    estimate e{v.value(), nan, true};
+    const double s2 = sigma2();
+    if (!std::isnan(s2)) e.std_error = std::sqrt(s2 * (1.0 / w_[i] + g_quadratic(u)));
+    return e;
+}
+
 double fit::scaled_covariance(const linear_function& f1, const linear_function& f2) const {
     Eigen::VectorXd u1 = d_prime_a(f1.a), u2 = d_prime_a(f2.a);
     for (std::size_t b = 0; b < kept_.size(); ++b) {

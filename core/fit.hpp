@@ -85,6 +85,9 @@ public:
     double slope(int j) const { return beta_[j]; }  // NaN when aliased
 
     estimate evaluate(const linear_function& f) const;
+    /// The adjusted mean of level i at covariates `at` (raw scale): the same as
+    /// evaluate(level_combination(e_i, at)) in O(p^2) instead of O(levels).
+    estimate level_mean_at(std::size_t i, const Eigen::VectorXd& at) const;
     /// Covariance of two linear functions divided by sigma^2.
     double scaled_covariance(const linear_function& f1, const linear_function& f2) const;
 

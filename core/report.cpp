@@ -112,9 +112,7 @@ table levels_report(const fit& f) {
     const double df = f.df_resid();
     const double q = dist::t_quantile(1.0 - (1.0 - f.opts().conf) / 2.0, df);
     for (std::size_t i = 0; i < f.levels(); ++i) {
-        Eigen::VectorXd k = Eigen::VectorXd::Zero(f.levels());
-        k[i] = 1.0;
-        const estimate e = f.evaluate(f.level_combination(k, at));
+        const estimate e = f.level_mean_at(i, at);
         t.rows.push_back({text(f.level_label(i)), integer(std::int64_t(i + 1)),
                           integer(f.level_rows(i)), num(f.level_weight(i)), num(f.level_mean(i)),
                           num(f.level_sd(i)), num(e.value), num(e.std_error),

@@ -151,7 +151,8 @@ table pairs_report(const fit& f) {
         interval = "per comparison";
         break;
     case adjust_kind::bonferroni:
-        for (std::size_t r = 0; r < raw.size(); ++r) adj[r] = std::min(1.0, md * raw[r]);
+        for (std::size_t r = 0; r < raw.size(); ++r)  // NaN (not computable) stays NaN
+            adj[r] = std::isnan(raw[r]) ? raw[r] : std::min(1.0, md * raw[r]);
         crit = t_crit(1.0 - alpha / md);
         break;
     case adjust_kind::sidak:

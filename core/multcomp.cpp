@@ -265,7 +265,7 @@ template <class LogH>
 std::pair<double, double> tilted_outer(double df, double c_minus_1, double kappa, LogH log_h,
                                        double log_h_bound) {
     chi_weight cw(df);
-    const double drop = 55 + log_h_bound + std::log1p(kappa * (std::sqrt(df) + 12));
+    const double drop = 55 + log_h_bound + std::log1p(std::fabs(kappa) * (std::sqrt(df) + 12));
     auto [lo, hi] = cw.range(drop);
     auto f = [&](double u) {
         double v = cw.rel(u) + log_h(kappa * u);
@@ -514,7 +514,10 @@ double srange_log_upper(double q, int k, double df) {
         slope(u, &curv);
     }
     const double top = psi(u > 0 ? u : 1e-300);
-    const double sd = 1 / std::sqrt(std::max(-curv, 1e-12));
+    // Scale from the curvature at the mode, at most 1: for large q the tilt
+    // cancels the density where the range tail is near 1, leaving a flat top
+    // (kappa -> 2); the interval search below extends as far as needed.
+    const double sd = std::min(1.0, 1 / std::sqrt(std::max(-curv, 1e-12)));
     constexpr double drop = 40;  // e^-40 ~ 4e-18
     double lo = 0;
     if (!boundary) {
@@ -574,14 +577,14 @@ double srange_upper_p(double q, double k, double df) {
     if (!valid_k(k) || !valid_df(df) || std::isnan(q)) return nan;
     if (q <= 0) return 1.0;
     if (std::isinf(q)) return 0.0;
-    return std::exp(srange_log_upper(q, static_cast<int>(k), df));
+    return std::min(1.0, std::exp(srange_log_upper(q, static_cast<int>(k), df)));
 }
 
 double srange_cdf(double q, double k, double df) {
     if (!valid_k(k) || !valid_df(df) || std::isnan(q)) return nan;
     if (q <= 0) return 0.0;
     if (std::isinf(q)) return 1.0;
-    return -std::expm1(srange_log_upper(q, static_cast<int>(k), df));
+    return std::max(0.0, -std::expm1(srange_log_upper(q, static_cast<int>(k), df)));
 }
 
 double srange_quantile(double p, double k, double df) {
@@ -594,7 +597,7 @@ double srange_quantile(double p, double k, double df) {
         auto f = [&](double q) { return srange_log_upper(q, ki, df) - target; };
         return solve_monotone(f, 1.0, 4.0, true, 0.0, 1e300);
     }
-    auto f = [&](double q) { return -std::expm1(srange_log_upper(q, ki, df)) - p; };
+    auto f = [&](double q) { return -std::expm1(std::min(0.0, srange_log_upper(q, ki, df))) - p; };
     return solve_monotone(f, 1.0, 4.0, false, 0.0, 1e300);
 }
 
@@ -615,11 +618,20 @@ public:
             double l = lambda[i];
             if (!(std::fabs(l) < 1))
                 throw groupfit::error("dunnett: every lambda must be below 1 in absolute value");
+            // Equal factors (balanced designs) are evaluated once, with a multiplicity.
+            auto it = std::find(lam_.begin(), lam_.end(), l);
+            if (it != lam_.end()) {
+                ++mult_[it - lam_.begin()];
+                continue;
+            }
             lam_.push_back(l);
             sig_.push_back(std::sqrt((1 - l) * (1 + l)));
+            mult_.push_back(1);
+            reach_ = std::max(reach_, std::fabs(l));
         }
+        m_ = static_cast<std::size_t>(lambda.size());
     }
-    std::size_t size() const { return lam_.size(); }
+    std::size_t size() const { return m_; }
 
     /// log of H(x) = P(some comparison beyond x | S = 1), tilted by e^{x^2/2}
     /// when x > 0 (returns log H(x) + x^2/2); plain log H(x) when x <= 0.
@@ -630,7 +642,10 @@ public:
             return 0.0;  // P(max |T| > x) = 1
         }
         const bool tilt = x > 0;
-        const double y_max = std::sqrt((tilt ? x * x : 0.0) + 2 * 60.0);
+        // Given Y = y the tail mass of comparison i sits near y = +-lambda_i x with
+        // sd sigma_i <= 1 under the phi(y) envelope: 9.5 beyond the outermost
+        // centre leaves less than e^-45 of it.
+        const double y_max = (tilt ? reach_ * x : 0.0) + 9.5;
         std::vector<double> cuts{-y_max, y_max, 0.0};
         if (tilt) {
             for (double l : lam_) {
@@ -646,7 +661,7 @@ public:
         }
         pts.back() = y_max;
         auto f = [&](double y) { return integrand(y, x, tilt); };
-        integral r = gk(f, pts, 1e-12, 300);
+        integral r = gk(f, pts, 1e-9, 300);
         if (rel_err) *rel_err = r.value > 0 ? r.error / r.value : 0.0;
         return std::log(r.value);
     }
@@ -683,7 +698,7 @@ private:
         // e_i = P(comparison i beyond x | Y = y); complement C = 1 - prod(1 - e_i).
         double log_inside = 0, e_sum = 0;
         for (std::size_t i = 0; i < lam_.size(); ++i) {
-            const double l = lam_[i], s = sig_[i];
+            const double l = lam_[i], s = sig_[i], mult = mult_[i];
             const double a = (x - l * y) / s;  // upper standardized limit
             double ep = 0.5 * std::erfc(a * inv_sqrt2);
             double e = ep, em = 0;
@@ -692,18 +707,18 @@ private:
                 em = 0.5 * std::erfc(b * inv_sqrt2);
                 e += em;
             }
-            e_sum += e;
+            e_sum += mult * e;
             if (e < 0.5) {
-                log_inside += std::log1p(-e);
+                log_inside += mult * std::log1p(-e);
             } else if (!two_sided_) {
-                log_inside += std::log(0.5 * std::erfc(-a * inv_sqrt2));
+                log_inside += mult * std::log(0.5 * std::erfc(-a * inv_sqrt2));
             } else {
                 const double b = -(x + l * y) / s;  // lower limit, b < a
                 double d;
                 if (b >= 0) d = 0.5 * (std::erfc(b * inv_sqrt2) - std::erfc(a * inv_sqrt2));
                 else if (a <= 0) d = 0.5 * (std::erfc(-a * inv_sqrt2) - std::erfc(-b * inv_sqrt2));
                 else d = 1 - e;
-                log_inside += std::log(d);
+                log_inside += mult * std::log(d);
             }
         }
         const double comp = -std::expm1(log_inside);
@@ -715,17 +730,20 @@ private:
         for (std::size_t i = 0; i < lam_.size(); ++i) {
             const double l = lam_[i], s = sig_[i];
             double d = (y - l * x) / s;
-            scaled += std::exp(-0.5 * d * d - ln_2pi + log_mills((x - l * y) / s));
+            double t = std::exp(-0.5 * d * d - ln_2pi + log_mills((x - l * y) / s));
             if (two_sided_) {
                 d = (y + l * x) / s;
-                scaled += std::exp(-0.5 * d * d - ln_2pi + log_mills((x + l * y) / s));
+                t += std::exp(-0.5 * d * d - ln_2pi + log_mills((x + l * y) / s));
             }
+            scaled += mult_[i] * t;
         }
         return e_sum > 0 ? scaled * (comp / e_sum) : scaled;
     }
 
     bool two_sided_;
-    std::vector<double> lam_, sig_;
+    std::size_t m_ = 0;
+    double reach_ = 0;                       // max |lambda_i|
+    std::vector<double> lam_, sig_, mult_;  // distinct lambda_i, sigma_i, multiplicities
 };
 
 dunnett_result product_upper(double c, const Eigen::VectorXd& lambda, double df, dunnett_sides sides) {
@@ -1065,13 +1083,16 @@ dunnett_result dunnett_quantile(double level, const Eigen::MatrixXd& corr, doubl
     const double c0 = dunnett_product_quantile(level, control, df, sides).value;
     long n = 0;
     qmc_mvt(corr, df, c0, two, control).estimate(qmc_tolerance, 0, &n);
+    double err = 0;  // error estimate of the last evaluation
     auto prob = [&](double c) {
         if (two && c <= 0) return 0.0;
-        return dunnett_product_cdf(c, control, df, sides).value +
-               qmc_mvt(corr, df, c, two, control).estimate(qmc_tolerance, n).first;
+        auto [diff, e] = qmc_mvt(corr, df, c, two, control).estimate(qmc_tolerance, n);
+        err = e;
+        return dunnett_product_cdf(c, control, df, sides).value + diff;
     };
-    // Secant steps from the product-form value (the estimate is smooth in c);
-    // the last slope is the density used for the error bound.
+    // Secant steps from the product-form value (the estimate is smooth in c),
+    // to a step below 1e-6 relative (well inside the QMC error); the last
+    // slope is the density used for the error bound.
     double c_prev = c0, g_prev = prob(c0) - level;
     double c = c0 * (1 + 1e-3) + 1e-3, g = prob(c) - level;
     for (int i = 0; i < 20 && g != g_prev; ++i) {
@@ -1080,11 +1101,10 @@ dunnett_result dunnett_quantile(double level, const Eigen::MatrixXd& corr, doubl
         g_prev = g;
         c = next;
         g = prob(c) - level;
-        if (std::fabs(c - c_prev) <= 1e-7 * std::max(1.0, std::fabs(c))) break;
+        if (std::fabs(c - c_prev) <= 1e-6 * std::max(1.0, std::fabs(c))) break;
     }
     const double slope = (g - g_prev) / (c - c_prev);
-    const double e = qmc_mvt(corr, df, c, two, control).estimate(qmc_tolerance, n).second;
-    return {c, slope > 0 ? e / slope : nan, method_qmc};
+    return {c, slope > 0 ? err / slope : nan, method_qmc};
 }
 
 std::vector<dunnett_result> dunnett_adjusted_p(const Eigen::VectorXd& t, const Eigen::MatrixXd& corr,

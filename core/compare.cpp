@@ -45,11 +45,17 @@ void evaluate_item(const fit& f, item& it) {
 
 namespace detail {
 
-std::vector<double> holm(const std::vector<double>& p) {
+/// Indices of the non-NaN p-values, in ascending order of p (ties by position).
+static std::vector<std::size_t> ascending(const std::vector<double>& p) {
     std::vector<std::size_t> idx;
     for (std::size_t i = 0; i < p.size(); ++i)
         if (!std::isnan(p[i])) idx.push_back(i);
     std::stable_sort(idx.begin(), idx.end(), [&](auto a, auto b) { return p[a] < p[b]; });
+    return idx;
+}
+
+std::vector<double> holm(const std::vector<double>& p) {
+    const std::vector<std::size_t> idx = ascending(p);
     std::vector<double> out(p.size(), nan);
     const double m = double(idx.size());
     double running = 0.0;
@@ -61,10 +67,7 @@ std::vector<double> holm(const std::vector<double>& p) {
 }
 
 std::vector<double> benjamini_hochberg(const std::vector<double>& p) {
-    std::vector<std::size_t> idx;
-    for (std::size_t i = 0; i < p.size(); ++i)
-        if (!std::isnan(p[i])) idx.push_back(i);
-    std::stable_sort(idx.begin(), idx.end(), [&](auto a, auto b) { return p[a] < p[b]; });
+    const std::vector<std::size_t> idx = ascending(p);
     std::vector<double> out(p.size(), nan);
     const double m = double(idx.size());
     double running = 1.0;

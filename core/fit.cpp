@@ -286,8 +286,8 @@ estimate fit::evaluate(const linear_function& f) const {
         Eigen::VectorXd gamma_mag = xb_.col(j).cwiseAbs();
         double scale = std::fabs(f.g[j]);
         double along = f.g[j];
-        for (std::size_t b = 0; b < kept_.size(); ++b) {
-            if (delta.size() == 0) break;
+        // delta covers the covariates kept before j only.
+        for (Eigen::Index b = 0; b < delta.size(); ++b) {
             gamma -= xb_.col(kept_[b]) * delta[b];
             gamma_mag += xb_.col(kept_[b]).cwiseAbs() * std::fabs(delta[b]);
             along -= f.g[kept_[b]] * delta[b];

@@ -17,7 +17,9 @@
 //               intervals per comparison, labelled not simultaneous
 //   tukey       Tukey-Kramer: |t| * sqrt(2) referred to the studentized range
 //               of all L levels; simultaneous intervals (exact for equal n
-//               without covariates, conservative otherwise: Hayter 1984)
+//               without covariates; for unequal n without covariates proven
+//               conservative by Hayter 1984; with covariates an approximation
+//               that is conservative in published simulations, not proven)
 //   scheffe     t^2 / (L - 1) referred to F(L - 1, df); simultaneous over all
 //               contrasts
 //   dunnett     many-to-one (vs=), max |t| referred to the multivariate t with

@@ -61,11 +61,7 @@ summary::summary(int covariates, bool weighted) : p_(covariates), weighted_(weig
     scratch_.resize(p_ + 2);
 }
 
-std::int64_t summary::rows_used() const {
-    std::int64_t n = 0;
-    for (auto v : n_) n += v;
-    return n;
-}
+std::int64_t summary::rows_used() const { return total_; }
 
 std::int64_t summary::dropped_total() const {
     std::int64_t n = 0;
@@ -158,6 +154,7 @@ void summary::add_row(std::size_t c, const double* values, double w) {
     if (d0.hi != 0.0)  // the first row of a cell leaves nothing for the others
         detail::include_row<ddouble>(k, dc, r0, row, d0 * inv * w, 1);
     ++n_[c];
+    ++total_;
     if (weighted_) log_w_[c] += std::log(w);
 }
 
@@ -177,7 +174,10 @@ void summary::merge_factor(std::size_t into, const double* fo, const ddouble* fd
             for (int j = 1; j < k; ++j) row[j] += dd::two_diff(fo[j - 1], o[j - 1]);
         detail::include_row<ddouble>(k, d(into), rbar(into), row, fd[i], i);
     }
+    if (rows > (std::int64_t(1) << 53) - total_)
+        throw error("the merged model would have more than 2^53 rows");
     n_[into] += rows;
+    total_ += rows;
     log_w_[into] += log_w;
 }
 
@@ -256,6 +256,10 @@ struct reader {
 }  // namespace
 
 std::string summary::serialize() const {
+    for (const ddouble& v : factor_)
+        if (!std::isfinite(v.hi))
+            throw error("values too large for a model: a sum of squares overflowed (rescale the "
+                        "response, weights or covariates)");
     std::string out;
     const int k = p_ + 2;
     out.reserve(72 + cells() * (32 + 8 * (p_ + 1) + 16 * stride()));
@@ -342,6 +346,8 @@ void summary::parse_blob(std::string_view blob, const limits& lim, OnHeader&& on
     on_header(static_cast<int>(p), (flags & 1) != 0, dropped);
     const int k = static_cast<int>(p) + 2;
     const std::size_t stride = k + k * (k - 1) / 2;
+    constexpr std::uint64_t max_rows = std::uint64_t(1) << 53;
+    std::uint64_t total_rows = 0;
     std::vector<double> origin(p + 1);
     std::vector<ddouble> fac(stride);
     for (std::uint32_t c = 0; c < ncell; ++c) {
@@ -367,7 +373,10 @@ void summary::parse_blob(std::string_view blob, const limits& lim, OnHeader&& on
             throw error("not a groupfit model: unknown level type " + std::to_string(kind));
         }
         const auto rows = r.get<std::uint64_t>();
-        if (rows == 0 || rows > (std::uint64_t(1) << 62))
+        // At most 2^53 rows in a model, so that every row total stays exact
+        // (and far from int64 overflow) whatever is merged.
+        total_rows += rows;
+        if (rows == 0 || rows > max_rows || total_rows > max_rows)
             throw error("not a groupfit model: a cell has an impossible row count");
         const double log_w = r.finite();
         for (auto& v : origin) v = r.finite();
@@ -404,6 +413,7 @@ summary summary::deserialize(std::string_view blob, const limits& lim) {
             const std::size_t cell = s.cell_for(kind, data, len, lim);
             if (s.cells() == before) throw error("not a groupfit model: a level appears twice");
             s.n_[cell] = rows;
+            s.total_ += rows;
             s.log_w_[cell] = log_w;
             std::copy(origin, origin + s.p_ + 1, s.origin(cell));
             std::copy(fac, fac + s.stride(), s.d(cell));

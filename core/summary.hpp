@@ -137,6 +137,7 @@ private:
     bool weighted_ = false;
     std::vector<level> levels_;
     std::vector<std::int64_t> n_;
+    std::int64_t total_ = 0;  // rows over all cells, at most 2^53
     std::vector<double> log_w_;
     std::vector<double> origin_;   // per cell: origin[p+1]
     std::vector<ddouble> factor_;  // per cell: d[p+2], rbar[(p+2)(p+1)/2]

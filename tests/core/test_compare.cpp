@@ -934,6 +934,9 @@ const std::vector<std::string> kAliasLabels = {"a", "a", "a", "a", "b", "b", "b"
                                                "c", "c", "c", "c", "c"};
 const std::vector<double> kAliasY = {3.1, 2.7, 3.5, 2.9, 4.0, 4.4, 3.8, 5.2, 4.9, 5.6, 5.0, 5.3};
 const std::vector<double> kAliasSomeX = {1, 1, 1, 1, 1, 1, 1, 2, 2, 2, 2, 2};
+constexpr const char* kNullSource =
+    " (core/compare.hpp: a comparison that cannot be computed gets NULLs and a note and is left out"
+    " of the family)";
 const std::vector<double> kAliasAllX = {1, 1, 1, 1, 2, 2, 2, 3, 3, 3, 3, 3};
 
 std::size_t find_pair(const table& t, const std::string& a, const std::string& b) {
@@ -958,13 +961,14 @@ TEST(NotEstimable, SomeComparisonsAliasedOthersUnaffected) {
         for (auto [a, b] : {std::pair{"a", "c"}, std::pair{"b", "c"}}) {
             const std::size_t r = find_pair(t, a, b);
             for (const char* c : {"estimate", "std_error", "t_stat", "p_value", "p_adjusted", "ci_lower", "ci_upper"})
-                EXPECT_TRUE(is_null(t.rows[r][col(t, c)])) << a << "-" << b << " " << c << " must be NULL";
-            EXPECT_EQ(cell_text(t, r, "note"), note);
+                EXPECT_TRUE(is_null(t.rows[r][col(t, c)]))
+                    << a << "-" << b << " " << c << " must be NULL" << kNullSource;
+            EXPECT_EQ(cell_text(t, r, "note"), note) << kNullSource;
             total_checks() += 8;
         }
         // a - b: the model without the aliased covariate spans the same space.
         const std::size_t r = find_pair(t, "a", "b");
-        EXPECT_TRUE(is_null(t.rows[r][col(t, "note")]));
+        EXPECT_TRUE(is_null(t.rows[r][col(t, "note")])) << "an estimable comparison has no note" << kNullSource;
         const fit fo(without.s, parse_options("names=g; adjust=" + (adj == "tukey" || adj == "scheffe" ? adj : "none")));
         const table to = pairs_report(fo);
         const std::size_t ro = find_pair(to, "a", "b");
@@ -979,10 +983,12 @@ TEST(NotEstimable, SomeComparisonsAliasedOthersUnaffected) {
         // sidak and bh leave the p-value as it is; tukey and scheffe still
         // refer to all three levels, like the model without x.
         const double padj = cell(t, r, "p_adjusted"), pref = cell(to, ro, "p_adjusted");
-        EXPECT_TRUE(std::isfinite(padj)) << "the NULL rows must not make the estimable row's p NaN";
+        EXPECT_TRUE(std::isfinite(padj)) << "the NULL rows must not make the estimable row's p NaN" << kNullSource;
         EXPECT_NEAR(padj, pref, 1e-12 * std::max(1e-300, pref)) << "(core/compare.hpp: m counts computable comparisons only)";
-        EXPECT_NEAR(cell(t, r, "ci_lower"), cell(to, ro, "ci_lower"), 1e-12 * std::max(1.0, std::fabs(cell(to, ro, "ci_lower"))));
-        EXPECT_NEAR(cell(t, r, "ci_upper"), cell(to, ro, "ci_upper"), 1e-12 * std::max(1.0, std::fabs(cell(to, ro, "ci_upper"))));
+        EXPECT_NEAR(cell(t, r, "ci_lower"), cell(to, ro, "ci_lower"), 1e-12 * std::max(1.0, std::fabs(cell(to, ro, "ci_lower"))))
+            << "(core/compare.hpp: m counts computable comparisons only)";
+        EXPECT_NEAR(cell(t, r, "ci_upper"), cell(to, ro, "ci_upper"), 1e-12 * std::max(1.0, std::fabs(cell(to, ro, "ci_upper"))))
+            << "(core/compare.hpp: m counts computable comparisons only)";
         total_checks() += 3;
     }
     // Dunnett with one computable comparison: the single-comparison t test.
@@ -991,29 +997,33 @@ TEST(NotEstimable, SomeComparisonsAliasedOthersUnaffected) {
         const table t = pairs_report(fw);
         ASSERT_EQ(t.rows.size(), 2u);
         const std::size_t rb = find_pair(t, "b", "a"), rc = find_pair(t, "c", "a");
-        EXPECT_TRUE(is_null(t.rows[rc][col(t, "p_adjusted")]));
-        EXPECT_EQ(cell_text(t, rc, "note"), note);
+        EXPECT_TRUE(is_null(t.rows[rc][col(t, "p_adjusted")])) << kNullSource;
+        EXPECT_EQ(cell_text(t, rc, "note"), note) << kNullSource;
         const double praw = cell(t, rb, "p_value"), padj = cell(t, rb, "p_adjusted");
-        EXPECT_TRUE(std::isfinite(padj));
-        EXPECT_NEAR(padj, praw, 1e-9 * praw + 1e-12) << "Dunnett over one comparison is the t test";
+        EXPECT_TRUE(std::isfinite(padj)) << kNullSource;
+        EXPECT_NEAR(padj, praw, 1e-9 * praw + 1e-12)
+            << "identity: the multivariate t of one comparison is Student's t (core/multcomp.hpp)";
         const fit fo(without.s, parse_options("names=g; adjust=none; vs=a"));
         const table to = pairs_report(fo);
         const std::size_t ro = find_pair(to, "b", "a");
-        EXPECT_NEAR(cell(t, rb, "ci_lower"), cell(to, ro, "ci_lower"), 1e-8 * std::fabs(cell(to, ro, "ci_lower")));
-        EXPECT_NEAR(cell(t, rb, "ci_upper"), cell(to, ro, "ci_upper"), 1e-8 * std::fabs(cell(to, ro, "ci_upper")));
+        EXPECT_NEAR(cell(t, rb, "ci_lower"), cell(to, ro, "ci_lower"), 1e-8 * std::fabs(cell(to, ro, "ci_lower")))
+            << "identity: one-comparison Dunnett interval = t interval of the model without x";
+        EXPECT_NEAR(cell(t, rb, "ci_upper"), cell(to, ro, "ci_upper"), 1e-8 * std::fabs(cell(to, ro, "ci_upper")))
+            << "identity: one-comparison Dunnett interval = t interval of the model without x";
         total_checks() += 5;
     }
     // contrast_report: the estimable contrast works; the others are errors.
     {
         const fit fw(with.s, parse_options("names=g, x"));
         const table t = contrast_report(fw, "a=1, b=-1");
-        EXPECT_TRUE(std::isfinite(cell(t, 0, "p_value")));
-        EXPECT_TRUE(std::isfinite(cell(t, 1, "f_stat")));
+        EXPECT_TRUE(std::isfinite(cell(t, 0, "p_value"))) << "an estimable contrast is computed" << kNullSource;
+        EXPECT_TRUE(std::isfinite(cell(t, 1, "f_stat"))) << "an estimable contrast is computed" << kNullSource;
         try {
             contrast_report(fw, "a=1, c=-1");
             ADD_FAILURE() << "a non-estimable contrast must be an error";
         } catch (const groupfit::error& e) {
-            EXPECT_STREQ(e.what(), "weights: '1*a - 1*c' is not estimable: an aliased covariate confounds it");
+            EXPECT_STREQ(e.what(), "weights: '1*a - 1*c' is not estimable: an aliased covariate confounds it")
+                << "(expected text from core/compare.cpp)";
         }
         total_checks() += 3;
     }
@@ -1031,9 +1041,9 @@ TEST(NotEstimable, EveryComparisonAliased) {
         ASSERT_FALSE(t.rows.empty());
         for (std::size_t r = 0; r < t.rows.size(); ++r) {
             for (const char* c : {"estimate", "std_error", "t_stat", "p_value", "p_adjusted", "ci_lower", "ci_upper"})
-                EXPECT_TRUE(is_null(t.rows[r][col(t, c)])) << "row " << r << " " << c;
-            EXPECT_EQ(cell_text(t, r, "note"), "not estimable: an aliased covariate confounds it");
-            EXPECT_FALSE(is_null(t.rows[r][col(t, "df")])) << "df is still the model's";
+                EXPECT_TRUE(is_null(t.rows[r][col(t, c)])) << "row " << r << " " << c << kNullSource;
+            EXPECT_EQ(cell_text(t, r, "note"), "not estimable: an aliased covariate confounds it") << kNullSource;
+            EXPECT_FALSE(is_null(t.rows[r][col(t, "df")])) << "df is still the model's (core/compare.cpp)";
             total_checks() += 9;
         }
     }
@@ -1049,11 +1059,11 @@ TEST(NoResidualDf, NullsAndNote) {
     for (std::size_t r = 0; r < t.rows.size(); ++r) {
         EXPECT_FALSE(is_null(t.rows[r][col(t, "estimate")]));
         for (const char* c : {"std_error", "t_stat", "df", "p_value", "p_adjusted", "ci_lower", "ci_upper"})
-            EXPECT_TRUE(is_null(t.rows[r][col(t, c)])) << "row " << r << " " << c;
-        EXPECT_EQ(cell_text(t, r, "note"), "no residual degrees of freedom: no standard error");
+            EXPECT_TRUE(is_null(t.rows[r][col(t, c)])) << "row " << r << " " << c << kNullSource;
+        EXPECT_EQ(cell_text(t, r, "note"), "no residual degrees of freedom: no standard error") << kNullSource;
         total_checks() += 9;
     }
-    EXPECT_NEAR(cell(t, find_pair(t, "a", "c"), "estimate"), -3.0, 1e-15);
+    EXPECT_NEAR(cell(t, find_pair(t, "a", "c"), "estimate"), -3.0, 1e-15) << "1.0 - 4.0 (the data)";
 }
 
 // ---------------------------------------------------------------------------
@@ -1087,6 +1097,8 @@ TEST(BadInput, ExactMessages) {
     struct expect_case {
         std::string what, got, want;
     };
+    // The expected texts are those thrown in core/options.cpp (parse_options),
+    // core/fit.cpp (find_level, at_values) and core/compare.cpp (weights).
     const std::vector<expect_case> cases = {
         {"adjust=foo", error_of([] { parse_options("adjust=foo"); }),
          "options: adjust must be one of none, bonferroni, holm, sidak, bh, tukey, scheffe, dunnett (not 'foo')"},
@@ -1133,12 +1145,16 @@ TEST(BadInput, ExactMessages) {
         {"weights: nothing", contrast_err(three.s, "", " ; "), "weights: no contrast given (for example 'a=1, b=-1')"},
     };
     for (const auto& c : cases) {
-        EXPECT_EQ(c.got, c.want) << c.what;
+        const char* src = c.want.find("names an unknown") != std::string::npos ? "core/fit.cpp"
+                          : starts_with(c.want, "weights:") ? "core/compare.cpp"
+                                                             : "core/options.cpp";
+        EXPECT_EQ(c.got, c.want) << c.what << " (expected text from " << src << ")";
         ++total_checks();
     }
     // One level: nothing to compare (core/compare.cpp).
     const synthetic one({"a", "a", "a"}, {}, {1.0, 2.0, 4.0}, false);
-    EXPECT_EQ(pairs_err(one.s, ""), "comparisons need at least two levels; the model has one");
+    EXPECT_EQ(pairs_err(one.s, ""), "comparisons need at least two levels; the model has one")
+        << "(expected text from core/compare.cpp)";
     ++total_checks();
 }
 

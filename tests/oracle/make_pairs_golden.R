@@ -2,7 +2,8 @@
 # (core/compare.hpp: pairs_report and contrast_report).
 #
 # Run from the repository root:
-#     Rscript tests/oracle/make_pairs_golden.R
+#     Rscript tests/oracle/make_pairs_golden.R [dataset ... | padjust]
+# (no argument: every file; about 10 minutes, mostly pmvt and quadrature).
 #
 # Needs base R plus the Debian packages r-cran-multcomp and r-cran-mvtnorm.
 # R is a reference calculator only: the options, column names and definitions
@@ -37,8 +38,12 @@
 #                     qt(1 - alpha/m)), sidak qt(1 - (1 - conf^(1/m))/2) (one-sided
 #                     qt(conf^(1/m))), tukey qtukey(conf, L, df) / sqrt(2), scheffe
 #                     sqrt((L - 1) qf(conf, L - 1, df)), dunnett: the root of
-#                     pmvt(...) = conf (uniroot, tol 1e-12, fixed seed; multcomp's
-#                     own qmvt stops at ptol = 0.001, too coarse for a reference).
+#                     pmvt(...) = conf (uniroot, tol 1e-9, fixed seed; multcomp's
+#                     own qmvt stops at ptol = 0.001, too coarse for a reference)
+#                     and, without covariates, the root of the quadrature (tol
+#                     1e-12). Each Dunnett case also has a crit_density row (d/dc
+#                     of pmvt at the root) that the test uses to turn groupfit's
+#                     stated p error into an error of its critical value.
 #                     qtukey stops its secant iteration at eps = 1e-4, so the
 #                     quantile is polished with uniroot on ptukey (tol 1e-13);
 #                     TukeyHSD rows keep R's qtukey and carry its deviation as
@@ -56,12 +61,13 @@
 # single-step all-pairs values (multivariate t with the model's correlation)
 # for tukey. Tukey-Kramer equals them only for equal n without covariates (then
 # they are written as ordinary p_adjusted / ci rows); otherwise it is
-# conservative (Hayter 1984), so ours must satisfy p_adjusted >= p_adjusted_min,
-# ci_lower <= ci_lower_max and ci_upper >= ci_upper_min. The script checks
-# that the ptukey values satisfy these before writing them.
+# conservative (Hayter 1984, for the one-way model; with covariates it is not a
+# theorem, and the script checks it on these data before writing), so ours must
+# satisfy p_adjusted >= p_adjusted_min, ci_lower <= ci_lower_max and
+# ci_upper >= ci_upper_min.
 #
-# r_error: the reference value's own absolute error (pmvt's error estimate,
-# ptukey's absolute accuracy 2e-10 -- checked in this script against adaptive
+# r_error: the reference value's own absolute error (3 x pmvt's error estimate,
+# plus 1e-7 for Dunnett p-values; ptukey's absolute accuracy 2e-10 -- checked in this script against adaptive
 # quadrature of the defining integral -- or qtukey's deviation); 0 when R's
 # function is accurate to rounding. The C++ test adds it to its tolerance.
 #

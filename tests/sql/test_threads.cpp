@@ -242,9 +242,10 @@ TEST(Threads, EveryThreadGetsTheSingleThreadedResultsExactly) {
     for (int i = 0; i < thread_count; ++i) {
         SCOPED_TRACE("thread " + std::to_string(i + 1));
         EXPECT_TRUE(results[i].error.empty()) << results[i].error;
-        if (results[i].error.empty())
+        if (results[i].error.empty()) {
             EXPECT_TRUE(results[i].lines == reference.lines)
                 << "differs from the single-threaded run at " << first_difference(reference, results[i]);
+        }
     }
 }
 

@@ -17,11 +17,37 @@ std::string degree_name(std::size_t d) {
     return d < 5 ? names[d] : "degree " + std::to_string(d);
 }
 
-coding::coding(const fit& f) : f_(&f), kind_(f.opts().coding), L_(f.levels()), size_(f.levels()) {
-    const options& o = f.opts();
+namespace {
+coded_levels levels_of(const fit& f) {
+    coded_levels v;
+    for (std::size_t i = 0; i < f.levels(); ++i) {
+        v.levels.push_back(&f.level_at(i));
+        v.labels.push_back(f.level_label(i));
+        v.weights.push_back(f.level_weight(i));
+    }
+    v.covariates = f.covariates() > 0;
+    return v;
+}
+}  // namespace
+
+std::size_t coded_levels::find(const std::string& label, const char* option) const {
+    for (std::size_t i = 0; i < labels.size(); ++i)
+        if (labels[i] == label) return i;
+    std::string list;
+    for (std::size_t i = 0; i < labels.size() && i < 20; ++i) list += (i ? ", " : "") + labels[i];
+    if (labels.size() > 20) list += ", ... (" + std::to_string(labels.size()) + " levels)";
+    throw error(std::string("options: ") + option + " names an unknown level '" + label +
+                "' (levels: " + list + ")");
+}
+
+coding::coding(const fit& f) : coding(levels_of(f), f.opts(), true) {}
+
+coding::coding(coded_levels levels, const options& o, bool use_base)
+    : v_(std::move(levels)), spacing_(o.spacing), kind_(o.coding), L_(v_.labels.size()),
+      size_(v_.labels.size()) {
     if (kind_ == coding_kind::dummy) base_ = 0;
     if (kind_ == coding_kind::effect || kind_ == coding_kind::weighted_effect) base_ = L_ - 1;
-    if (o.has_base) base_ = f.find_level(o.base, "base");
+    if (o.has_base && use_base) base_ = v_.find(o.base, "base");
     if (kind_ == coding_kind::polynomial) {
         if (L_ > max_polynomial_levels)
             throw error("options: coding=polynomial supports at most " +
@@ -30,10 +56,10 @@ coding::coding(const fit& f) : f_(&f), kind_(f.opts().coding), L_(f.levels()), s
         Eigen::VectorXd s(L_);
         for (std::size_t i = 0; i < L_; ++i) {
             if (o.spacing == spacing_kind::values) {
-                if (!f.level_at(i).is_numeric())
+                if (!v_.levels[i]->is_numeric())
                     throw error("options: spacing=values needs numeric levels; level '" +
-                                f.level_label(i) + "' is not a number");
-                s[i] = f.level_at(i).numeric_value();
+                                v_.labels[i] + "' is not a number");
+                s[i] = v_.levels[i]->numeric_value();
             } else {
                 s[i] = double(i + 1);
             }
@@ -93,7 +119,7 @@ Eigen::VectorXd coding::row(std::size_t i) const {
     const double uniform = 1.0 / double(L_);
     auto weighted = [&] {
         Eigen::VectorXd w(L_);
-        for (std::size_t j = 0; j < L_; ++j) w[j] = f_->level_weight(j);
+        for (std::size_t j = 0; j < L_; ++j) w[j] = v_.weights[j];
         return Eigen::VectorXd(w / w.sum());
     };
     switch (kind_) {
@@ -140,10 +166,10 @@ std::string coding::label(std::size_t i) const {
     switch (kind_) {
     case coding_kind::dummy:
     case coding_kind::effect:
-    case coding_kind::weighted_effect: return f_->level_label(level_of(i));
-    case coding_kind::helmert: return f_->level_label(i - 1);
+    case coding_kind::weighted_effect: return v_.labels.at(level_of(i));
+    case coding_kind::helmert: return v_.labels.at(i - 1);
     case coding_kind::reverse_helmert:
-    case coding_kind::successive: return f_->level_label(i);
+    case coding_kind::successive: return v_.labels.at(i);
     case coding_kind::polynomial: return degree_name(i);
     case coding_kind::custom: return "custom " + std::to_string(i);
     }
@@ -151,9 +177,9 @@ std::string coding::label(std::size_t i) const {
 }
 
 std::string coding::compares(std::size_t i) const {
-    const bool cov = f_->covariates() > 0;
+    const bool cov = v_.covariates;
     const std::string at0 = cov ? " where every covariate is 0" : "";
-    auto lab = [&](std::size_t j) { return f_->level_label(j); };
+    auto lab = [&](std::size_t j) { return v_.labels.at(j); };
     if (i == 0) {
         switch (kind_) {
         case coding_kind::dummy: return "mean of " + lab(base_) + at0;
@@ -176,7 +202,7 @@ std::string coding::compares(std::size_t i) const {
     case coding_kind::successive: return lab(i) + " vs " + lab(i - 1);
     case coding_kind::polynomial:
         return degree_name(i) + " trend over levels in order" +
-               (f_->opts().spacing == spacing_kind::values ? " (spaced by level value)" : "");
+               (spacing_ == spacing_kind::values ? " (spaced by level value)" : "");
     case coding_kind::custom: {
         std::string s;
         const auto& w = custom_[i - 1];

@@ -32,11 +32,26 @@
 
 namespace groupfit {
 
+/// What a coding needs to know about one factor: its levels in report order,
+/// their labels and weight sums, and whether the model has covariates (for
+/// the wording of `compares`).
+struct coded_levels {
+    std::vector<const level*> levels;
+    std::vector<std::string> labels;
+    std::vector<double> weights;
+    bool covariates = false;
+    /// Index of the level with this label; throws naming the option.
+    std::size_t find(const std::string& label, const char* option) const;
+};
+
 class coding {
 public:
     /// Validates the coding options against the fitted levels; throws
     /// groupfit::error naming the option.
     explicit coding(const fit& f);
+    /// The same for one factor of a crossed model; base= applies only when
+    /// `use_base` (it names a level of this factor).
+    coding(coded_levels levels, const options& o, bool use_base);
     std::size_t size() const { return size_; }  // number of rows: the intercept + L-1
     Eigen::VectorXd row(std::size_t i) const;
     std::string label(std::size_t i) const;      // the level or trend a row is named by
@@ -44,7 +59,8 @@ public:
 
 private:
     std::size_t level_of(std::size_t i) const;   // for dummy/effect: the level of row i
-    const fit* f_;
+    coded_levels v_;
+    spacing_kind spacing_;
     coding_kind kind_;
     std::size_t L_, size_, base_ = 0;
     Eigen::MatrixXd poly_;                       // polynomial: L x L, column d = degree d

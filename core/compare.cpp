@@ -22,16 +22,16 @@ std::string weight_text(double w) { return short_real(w); }
 
 /// One comparison or contrast: its linear function and what came of it.
 struct item {
-    linear_function fn;
+    Eigen::VectorXd k;
     double est = nan, se = nan, t = nan, p = nan;
     std::string note;
     bool ok() const { return !std::isnan(se) && se > 0; }
 };
 
-void evaluate_item(const fit& f, item& it) {
-    const estimate e = f.evaluate(it.fn);
+void evaluate_item(const mean_family& f, item& it) {
+    const estimate e = f.combine(it.k);
     if (!e.estimable) {
-        it.note = "not estimable: an aliased covariate confounds it";
+        it.note = "not estimable: " + f.not_estimable_reason();
         return;
     }
     it.est = e.value;
@@ -40,6 +40,36 @@ void evaluate_item(const fit& f, item& it) {
     else if (!(e.std_error > 0)) it.note = "zero standard error (exact fit): no test";
     else it.t = e.value / e.std_error;
 }
+
+/// The levels of a one-factor model at the covariate values of at=.
+class level_family final : public mean_family {
+public:
+    explicit level_family(const fit& f) : f_(f), at_(f.at_values()) {}
+    std::size_t size() const override { return f_.levels(); }
+    std::string label(std::size_t i) const override { return f_.level_label(i); }
+    std::size_t find(const std::string& label, const char* option) const override {
+        return f_.find_level(label, option);
+    }
+    estimate combine(const Eigen::VectorXd& k) const override {
+        return f_.evaluate(f_.level_combination(k, at_));
+    }
+    double scaled_covariance(const Eigen::VectorXd& k1, const Eigen::VectorXd& k2) const override {
+        return f_.scaled_covariance(f_.level_combination(k1, at_), f_.level_combination(k2, at_));
+    }
+    double df() const override { return f_.df_resid(); }
+    double sigma2() const override { return f_.sigma2(); }
+    std::string at_text() const override {
+        std::string a;
+        for (int j = 0; j < f_.covariates(); ++j)
+            a += (j ? ", " : "") + f_.covariate_name(j) + "=" + shortest_real(at_[j]);
+        return a;
+    }
+    std::string not_estimable_reason() const override { return "an aliased covariate confounds it"; }
+
+private:
+    const fit& f_;
+    Eigen::VectorXd at_;
+};
 
 }  // namespace
 
@@ -82,7 +112,7 @@ std::vector<double> benjamini_hochberg(const std::vector<double>& p) {
 
 const std::vector<std::string>& pairs_columns() {
     static const std::vector<std::string> c = {
-        "level_a", "level_b", "estimate", "std_error", "t_stat", "df", "p_value", "p_adjusted",
+        "level_a", "level_b", "within", "estimate", "std_error", "t_stat", "df", "p_value", "p_adjusted",
         "ci_lower", "ci_upper", "method", "interval", "note"};
     return c;
 }
@@ -95,15 +125,22 @@ const std::vector<std::string>& contrast_columns() {
 }
 
 table pairs_report(const fit& f) {
-    const options& o = f.opts();
-    const std::size_t L = f.levels();
+    table t{pairs_columns(), {}};
+    pairs_rows(level_family(f), f.opts(), std::string(), t);
+    return t;
+}
+
+table contrast_report(const fit& f, std::string_view weights) {
+    return contrast_report(level_family(f), f.opts(), weights);
+}
+
+void pairs_rows(const mean_family& f, const options& o, const std::string& within, table& t) {
+    const std::size_t L = f.size();
     if (L < 2) throw error("comparisons need at least two levels; the model has one");
-    const std::size_t p = static_cast<std::size_t>(f.covariates());
-    const Eigen::VectorXd zero_at = f.at_values();  // contrasts do not depend on it
 
     std::vector<std::pair<std::size_t, std::size_t>> pairs;
     if (o.has_vs) {
-        const std::size_t c = f.find_level(o.vs, "vs");
+        const std::size_t c = f.find(o.vs, "vs");
         for (std::size_t i = 0; i < L; ++i)
             if (i != c) pairs.emplace_back(i, c);
     } else {
@@ -115,12 +152,11 @@ table pairs_report(const fit& f) {
         Eigen::VectorXd k = Eigen::VectorXd::Zero(L);
         k[pairs[r].first] = 1.0;
         k[pairs[r].second] = -1.0;
-        items[r].fn = f.level_combination(k, zero_at);
+        items[r].k = std::move(k);
         evaluate_item(f, items[r]);
     }
-    (void)p;
 
-    const double df = f.df_resid();
+    const double df = f.df();
     const double alpha = 1.0 - o.conf;
     const side_kind side = o.side;
     const bool two = side == side_kind::two_sided;
@@ -194,12 +230,12 @@ table pairs_report(const fit& f) {
         Eigen::MatrixXd corr(live.size(), live.size());
         std::vector<double> var(live.size());
         for (std::size_t a = 0; a < live.size(); ++a)
-            var[a] = f.scaled_covariance(items[live[a]].fn, items[live[a]].fn);
+            var[a] = f.scaled_covariance(items[live[a]].k, items[live[a]].k);
         for (std::size_t a = 0; a < live.size(); ++a)
             for (std::size_t b = a; b < live.size(); ++b)
                 corr(a, b) = corr(b, a) =
                     a == b ? 1.0
-                           : f.scaled_covariance(items[live[a]].fn, items[live[b]].fn) /
+                           : f.scaled_covariance(items[live[a]].k, items[live[b]].k) /
                                  std::sqrt(var[a] * var[b]);
         const auto sides = two ? dist::dunnett_sides::two_sided : dist::dunnett_sides::one_sided;
         Eigen::VectorXd stat(live.size());
@@ -225,7 +261,6 @@ table pairs_report(const fit& f) {
     if (!two) method += std::string(" (one-sided, ") + side_name(side) + ")";
     if (!dunnett_method.empty()) method += " [" + dunnett_method + "]";
 
-    table t{pairs_columns(), {}};
     for (std::size_t r = 0; r < items.size(); ++r) {
         const item& it = items[r];
         double lo = nan, hi = nan;
@@ -235,17 +270,15 @@ table pairs_report(const fit& f) {
             if (side == side_kind::greater) hi = std::numeric_limits<double>::infinity();
             if (side == side_kind::less) lo = -std::numeric_limits<double>::infinity();
         }
-        t.rows.push_back({text(f.level_label(pairs[r].first)), text(f.level_label(pairs[r].second)),
-                          num(it.est), num(it.se), num(it.t), df > 0 ? num(df) : value{},
+        t.rows.push_back({text(f.label(pairs[r].first)), text(f.label(pairs[r].second)),
+                          within.empty() ? value{} : text(within), num(it.est), num(it.se), num(it.t), df > 0 ? num(df) : value{},
                           num(raw[r]), num(adj[r]), num(lo), num(hi), text(method),
                           text(interval), it.note.empty() ? value{} : text(it.note)});
     }
-    return t;
 }
 
-table contrast_report(const fit& f, std::string_view weights) {
-    const std::size_t L = f.levels();
-    const Eigen::VectorXd at = f.at_values();
+table contrast_report(const mean_family& f, const options& o, std::string_view weights) {
+    const std::size_t L = f.size();
     std::vector<item> items;
     std::vector<std::string> written;
     std::vector<bool> is_contrast;
@@ -265,7 +298,7 @@ table contrast_report(const fit& f, std::string_view weights) {
             double w = 0;
             if (!parse_real(wtext, w))
                 throw error("weights: the weight of '" + label + "' must be a number, not '" + wtext + "'");
-            const std::size_t i = f.find_level(label, "weights");
+            const std::size_t i = f.find(label, "weights");
             if (seen[i]) throw error("weights: level '" + label + "' appears twice in one contrast");
             seen[i] = true;
             k[i] = w;
@@ -276,10 +309,10 @@ table contrast_report(const fit& f, std::string_view weights) {
         }
         if (k.cwiseAbs().sum() == 0.0) throw error("weights: a contrast has only zero weights");
         item it;
-        it.fn = f.level_combination(k, at);
+        it.k = k;
         evaluate_item(f, it);
         if (it.note.rfind("not estimable", 0) == 0)
-            throw error("weights: '" + out + "' is not estimable: an aliased covariate confounds it");
+            throw error("weights: '" + out + "' is " + it.note);
         const bool contrast = std::fabs(k.sum()) <= 1e-12 * k.cwiseAbs().sum();
         items.push_back(it);
         written.push_back(out);
@@ -287,19 +320,15 @@ table contrast_report(const fit& f, std::string_view weights) {
     }
     if (items.empty()) throw error("weights: no contrast given (for example 'a=1, b=-1')");
 
-    const double df = f.df_resid();
-    const double q = dist::t_quantile(1.0 - (1.0 - f.opts().conf) / 2.0, df);
+    const double df = f.df();
+    const double q = dist::t_quantile(1.0 - (1.0 - o.conf) / 2.0, df);
     table t{contrast_columns(), {}};
-    bool any_cov = f.covariates() > 0;
+    const std::string at = f.at_text();
     for (std::size_t r = 0; r < items.size(); ++r) {
         const item& it = items[r];
         std::string note = it.note;
-        if (!is_contrast[r] && any_cov) {
-            std::string a;
-            for (int j = 0; j < f.covariates(); ++j)
-                a += (j ? ", " : "") + f.covariate_name(j) + "=" + shortest_real(at[j]);
-            note += std::string(note.empty() ? "" : "; ") + "at " + a;
-        }
+        if (!is_contrast[r] && !at.empty())
+            note += std::string(note.empty() ? "" : "; ") + "at " + at;
         t.rows.push_back({text(written[r]),
                           text(is_contrast[r] ? "contrast" : "combination of means (weights do "
                                                               "not sum to zero)"),
@@ -318,7 +347,7 @@ table contrast_report(const fit& f, std::string_view weights) {
         all_ok = all_ok && items[a].ok();
         e[a] = items[a].est;
         for (std::size_t b = a; b < n; ++b)
-            v(a, b) = v(b, a) = f.scaled_covariance(items[a].fn, items[b].fn);
+            v(a, b) = v(b, a) = f.scaled_covariance(items[a].k, items[b].k);
     }
     value fs, p, rk, note;
     if (all_ok) {

@@ -39,6 +39,34 @@ namespace groupfit {
 const std::vector<std::string>& pairs_columns();
 const std::vector<std::string>& contrast_columns();
 
+/// A set of means that comparisons and contrasts are made over: the levels of a
+/// one-factor model, or the cells or marginal means of a crossed model. Every
+/// combination sum k_i mean_i is a linear function of the model's parameters.
+class mean_family {
+public:
+    virtual ~mean_family() = default;
+    virtual std::size_t size() const = 0;
+    virtual std::string label(std::size_t i) const = 0;
+    /// Index of the mean with this label; throws naming the option.
+    virtual std::size_t find(const std::string& label, const char* option) const = 0;
+    /// Value and standard error of sum_i k_i mean_i.
+    virtual estimate combine(const Eigen::VectorXd& k) const = 0;
+    /// Covariance of two combinations divided by sigma^2.
+    virtual double scaled_covariance(const Eigen::VectorXd& k1, const Eigen::VectorXd& k2) const = 0;
+    virtual double df() const = 0;
+    virtual double sigma2() const = 0;
+    /// The covariate values the means are taken at ("x1=2.5, x2=3"), or empty.
+    virtual std::string at_text() const = 0;
+    /// Why a combination is not estimable, for the note column.
+    virtual std::string not_estimable_reason() const = 0;
+};
+
+/// Appends the pairwise (or many-to-one, vs=) comparisons of one family to t,
+/// with `within` in the within column (NULL when empty).
+void pairs_rows(const mean_family& f, const options& o, const std::string& within, table& t);
+/// Contrasts over one family (the weights text names its labels).
+table contrast_report(const mean_family& f, const options& o, std::string_view weights);
+
 /// All pairs of levels (level_a before level_b in report order, estimate =
 /// mean_a - mean_b), or every level against the control named by vs=
 /// (estimate = level - control).

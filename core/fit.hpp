@@ -109,6 +109,7 @@ public:
     double condition_number() const;
 
     const options& opts() const { return opt_; }
+    const summary& data() const { return *s_; }
 
 private:
     Eigen::VectorXd d_prime_a(const Eigen::VectorXd& a) const;  // over kept covariates

@@ -46,8 +46,35 @@ const char* side_name(side_kind k) {
     return "?";
 }
 
+const char* terms_name(terms_kind k) {
+    switch (k) {
+    case terms_kind::full: return "full";
+    case terms_kind::main: return "main";
+    case terms_kind::two_way: return "two_way";
+    }
+    return "?";
+}
+
+const char* slopes_name(slopes_kind k) {
+    switch (k) {
+    case slopes_kind::common: return "common";
+    case slopes_kind::separate: return "separate";
+    case slopes_kind::cell: return "cell";
+    }
+    return "?";
+}
+
+const char* means_name(means_kind k) {
+    switch (k) {
+    case means_kind::equal: return "equal";
+    case means_kind::proportional: return "proportional";
+    }
+    return "?";
+}
+
 const char* option_keys() {
-    return "coding, base, order, conf, names, spacing, custom, ss, at, adjust, vs, side";
+    return "coding, base, order, conf, names, spacing, custom, ss, at, adjust, vs, side, terms, "
+           "slopes, means, factor, by";
 }
 
 namespace detail {
@@ -213,6 +240,33 @@ options parse_options(std::string_view text) {
             else if (v == "less") o.side = side_kind::less;
             else throw error("options: side must be one of two_sided, greater, less (not '" + v + "')");
             o.has_side = true;
+        } else if (key == "terms") {
+            std::string v = single();
+            if (v == "full") o.terms = terms_kind::full;
+            else if (v == "main") o.terms = terms_kind::main;
+            else if (v == "two_way") o.terms = terms_kind::two_way;
+            else throw error("options: terms must be one of full, main, two_way (not '" + v + "')");
+            o.has_terms = true;
+        } else if (key == "slopes") {
+            std::string v = single();
+            if (v == "common") o.slopes = slopes_kind::common;
+            else if (v == "separate") o.slopes = slopes_kind::separate;
+            else if (v == "cell") o.slopes = slopes_kind::cell;
+            else throw error("options: slopes must be one of common, separate, cell (not '" + v + "')");
+        } else if (key == "means") {
+            std::string v = single();
+            if (v == "equal") o.means = means_kind::equal;
+            else if (v == "proportional") o.means = means_kind::proportional;
+            else throw error("options: means must be one of equal, proportional (not '" + v + "')");
+            o.has_means = true;
+        } else if (key == "factor") {
+            o.factor = single();
+            o.has_factor = true;
+            if (o.factor.empty()) throw error("options: factor needs a factor name or cell");
+        } else if (key == "by") {
+            o.by = single();
+            o.has_by = true;
+            if (o.by.empty()) throw error("options: by needs a factor name");
         } else {
             throw error("options: unknown key '" + key + "' (keys: " + option_keys() + ")");
         }

@@ -37,6 +37,18 @@ const char* adjust_name(adjust_kind k);
 enum class side_kind { two_sided, greater, less };
 const char* side_name(side_kind k);
 
+/// Terms of a crossed model, chosen after the data pass.
+enum class terms_kind { full, main, two_way };
+const char* terms_name(terms_kind k);
+
+/// How covariate slopes vary: one slope each, by level of the first factor, or by cell.
+enum class slopes_kind { common, separate, cell };
+const char* slopes_name(slopes_kind k);
+
+/// Weighting of cells in a marginal mean of a crossed model.
+enum class means_kind { equal, proportional };
+const char* means_name(means_kind k);
+
 struct options {
     coding_kind coding = coding_kind::dummy;
     std::string base;                          // empty: the coding's default level
@@ -54,6 +66,16 @@ struct options {
     bool has_vs = false;
     side_kind side = side_kind::two_sided;
     bool has_side = false;
+    // Crossed factors and slopes.
+    terms_kind terms = terms_kind::full;
+    bool has_terms = false;
+    slopes_kind slopes = slopes_kind::common;
+    means_kind means = means_kind::equal;
+    bool has_means = false;
+    std::string factor;                        // pairs/contrast: whose means (a factor name, or "cell")
+    bool has_factor = false;
+    std::string by;                            // pairs: simple effects within levels of this factor
+    bool has_by = false;
 };
 
 /// Parses an options text. Throws groupfit::error with a message that names the

@@ -1,8 +1,10 @@
 #include "report.hpp"
 
+#include <algorithm>
 #include <cmath>
 
 #include "coding.hpp"
+#include "factorial.hpp"
 #include "dist.hpp"
 
 namespace groupfit {
@@ -51,8 +53,8 @@ const std::vector<std::string>& coef_columns() {
 }
 const std::vector<std::string>& levels_columns() {
     static const std::vector<std::string> c = {
-        "level", "position", "n", "weight_sum", "mean", "sd", "adjusted_mean", "std_error",
-        "ci_lower", "ci_upper", "covariates_at", "note"};
+        "term", "level", "position", "n", "weight_sum", "mean", "sd", "adjusted_mean",
+        "std_error", "ci_lower", "ci_upper", "weighting", "covariates_at", "note"};
     return c;
 }
 const std::vector<std::string>& deviations_columns() {
@@ -64,7 +66,7 @@ const std::vector<std::string>& deviations_columns() {
 const std::vector<std::string>& tests_columns() {
     static const std::vector<std::string> c = {
         "term", "method", "ss_type", "df", "df_denom", "sum_sq", "mean_sq", "f_stat",
-        "p_value", "eta_sq", "partial_eta_sq", "omega_sq"};
+        "p_value", "eta_sq", "partial_eta_sq", "omega_sq", "note"};
     return c;
 }
 const std::vector<std::string>& summary_columns() {
@@ -73,7 +75,7 @@ const std::vector<std::string>& summary_columns() {
         "dropped_null_covariate", "dropped_null_weight", "dropped_zero_weight", "weight_sum",
         "levels", "covariates", "parameters", "rank", "aliased", "df_model", "df_resid",
         "r_squared", "adj_r_squared", "resid_sd", "f_stat", "p_value", "log_lik", "aic", "bic",
-        "condition_number"};
+        "condition_number", "factors", "empty_cells", "empty_cell_labels", "model_form"};
     return c;
 }
 
@@ -113,10 +115,10 @@ table levels_report(const fit& f) {
     const double q = dist::t_quantile(1.0 - (1.0 - f.opts().conf) / 2.0, df);
     for (std::size_t i = 0; i < f.levels(); ++i) {
         const estimate e = f.level_mean_at(i, at);
-        t.rows.push_back({text(f.level_label(i)), integer(std::int64_t(i + 1)),
+        t.rows.push_back({text(f.group_name()), text(f.level_label(i)), integer(std::int64_t(i + 1)),
                           integer(f.level_rows(i)), num(f.level_weight(i)), num(f.level_mean(i)),
                           num(f.level_sd(i)), num(e.value), num(e.std_error),
-                          num(e.value - q * e.std_error), num(e.value + q * e.std_error),
+                          num(e.value - q * e.std_error), num(e.value + q * e.std_error), value{},
                           f.covariates() ? text(covariates_at(f, at)) : value{},
                           note_value(note_for(e))});
     }
@@ -218,6 +220,16 @@ table tests_report(const fit& f) {
                           num(double(n - 1)), df2, value{}, value{}, fw, p, value{}, value{},
                           value{}});
     }
+    for (auto& row : t.rows) row.resize(t.columns.size());
+    // The grouping-by-covariate interaction: do the slopes differ by level?
+    if (f.covariates() > 0 && f.levels() > 1) {
+        std::vector<value> h = slopes_homogeneity_row(f.data(), f.opts());
+        auto at = std::find_if(t.rows.begin(), t.rows.end(), [](const std::vector<value>& r) {
+            const auto* term = std::get_if<std::string>(&r[0]);
+            return term && (*term == "model" || *term == "residual");
+        });
+        t.rows.insert(at, std::move(h));
+    }
     return t;
 }
 
@@ -249,7 +261,8 @@ table summary_report(const fit& f, const summary& s) {
                       dfm > 0 ? num(fs) : value{},
                       dfm > 0 ? num(dist::f_upper_p(fs, dfm, dfr)) : value{},
                       num(ll), num(-2 * ll + 2 * kpar), num(-2 * ll + std::log(n) * kpar),
-                      num(f.condition_number())});
+                      num(f.condition_number()), integer(1), integer(0), value{},
+                      text("one factor; slopes=common")});
     return t;
 }
 

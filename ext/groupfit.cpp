@@ -51,6 +51,7 @@ SQLITE_EXTENSION_INIT1
 
 #include "compare.hpp"
 #include "error.hpp"
+#include "factorial.hpp"
 #include "fit.hpp"
 #include "options.hpp"
 #include "report.hpp"
@@ -193,6 +194,7 @@ void fit_step(sqlite3_context* ctx, int argc, sqlite3_value** argv, bool weighte
         if (null_x) return s.drop(groupfit::drop_reason::null_covariate);
         if (w == 0.0) return s.drop(groupfit::drop_reason::zero_weight);
         std::size_t cell;
+        const std::size_t cells_before = s.cells();
         if (gtype == SQLITE_INTEGER) {
             const sqlite3_int64 i = sqlite3_value_int64(g);
             cell = s.cell_for(groupfit::level_kind::integer, &i, sizeof i, lim);
@@ -207,6 +209,7 @@ void fit_step(sqlite3_context* ctx, int argc, sqlite3_value** argv, bool weighte
             const void* b = sqlite3_value_blob(g);
             cell = s.cell_for(groupfit::level_kind::blob, b ? b : "", sqlite3_value_bytes(g), lim);
         }
+        if (s.cells() != cells_before && cell > 0) groupfit::check_same_factors(s, cell);
         s.add_row(cell, vals, w);
     });
 }
@@ -285,30 +288,47 @@ void limit_func(sqlite3_context* ctx, int argc, sqlite3_value** argv) {
 struct report_kind {
     const char* name;
     const std::vector<std::string>& (*columns)();
-    groupfit::table (*make)(const groupfit::fit&, const summary&, std::string_view weights);
+    groupfit::table (*make)(const summary&, const groupfit::options&, std::string_view weights);
     bool takes_weights;  // hidden arguments: model, [weights,] options
 };
 
-groupfit::table make_coef(const groupfit::fit& f, const summary&, std::string_view) {
-    return groupfit::coef_report(f);
+/* Crossed cells (groupfit_cross), or slopes that vary by level, go to the
+** general model of core/factorial.hpp; a one-factor model with common slopes
+** to the double-double fit of core/fit.hpp. */
+bool general_model(const summary& s, const groupfit::options& o) {
+    return groupfit::crossed_factors(s) > 0 || o.slopes != groupfit::slopes_kind::common;
 }
-groupfit::table make_levels(const groupfit::fit& f, const summary&, std::string_view) {
-    return groupfit::levels_report(f);
+
+groupfit::table make_coef(const summary& s, const groupfit::options& o, std::string_view) {
+    if (general_model(s, o)) return groupfit::cross_coef_report(s, o);
+    return groupfit::coef_report(groupfit::fit(s, o));
 }
-groupfit::table make_deviations(const groupfit::fit& f, const summary&, std::string_view) {
-    return groupfit::deviations_report(f);
+groupfit::table make_levels(const summary& s, const groupfit::options& o, std::string_view) {
+    if (general_model(s, o)) return groupfit::cross_levels_report(s, o);
+    return groupfit::levels_report(groupfit::fit(s, o));
 }
-groupfit::table make_tests(const groupfit::fit& f, const summary&, std::string_view) {
-    return groupfit::tests_report(f);
+groupfit::table make_deviations(const summary& s, const groupfit::options& o, std::string_view) {
+    if (general_model(s, o)) return groupfit::cross_deviations_report(s, o);
+    return groupfit::deviations_report(groupfit::fit(s, o));
 }
-groupfit::table make_summary(const groupfit::fit& f, const summary& s, std::string_view) {
-    return groupfit::summary_report(f, s);
+groupfit::table make_tests(const summary& s, const groupfit::options& o, std::string_view) {
+    if (general_model(s, o)) return groupfit::cross_tests_report(s, o);
+    return groupfit::tests_report(groupfit::fit(s, o));
 }
-groupfit::table make_pairs(const groupfit::fit& f, const summary&, std::string_view) {
-    return groupfit::pairs_report(f);
+groupfit::table make_summary(const summary& s, const groupfit::options& o, std::string_view) {
+    if (general_model(s, o)) return groupfit::cross_summary_report(s, o);
+    return groupfit::summary_report(groupfit::fit(s, o), s);
 }
-groupfit::table make_contrast(const groupfit::fit& f, const summary&, std::string_view w) {
-    return groupfit::contrast_report(f, w);
+groupfit::table make_pairs(const summary& s, const groupfit::options& o, std::string_view) {
+    if (general_model(s, o)) return groupfit::cross_pairs_report(s, o);
+    if (o.has_by) throw groupfit::error("options: by= needs crossed factors (groupfit_cross)");
+    if (o.has_factor) throw groupfit::error("options: factor= needs crossed factors (groupfit_cross)");
+    return groupfit::pairs_report(groupfit::fit(s, o));
+}
+groupfit::table make_contrast(const summary& s, const groupfit::options& o, std::string_view w) {
+    if (general_model(s, o)) return groupfit::cross_contrast_report(s, o, w);
+    if (o.has_factor) throw groupfit::error("options: factor= needs crossed factors (groupfit_cross)");
+    return groupfit::contrast_report(groupfit::fit(s, o), w);
 }
 
 const report_kind reports[] = {
@@ -473,8 +493,7 @@ int report_filter(sqlite3_vtab_cursor* c, int idx, const char*, int argc, sqlite
                                   std::to_string(s.dropped_total()) +
                                   (s.dropped_total() == 1 ? " row was" : " rows were") +
                                   " dropped for NULLs or zero weights)");
-        const groupfit::fit f(s, o);
-        cur->result = vt->kind->make(f, s, wtext);
+        cur->result = vt->kind->make(s, o, wtext);
     } catch (const std::bad_alloc&) {
         return SQLITE_NOMEM;
     } catch (const std::exception& e) {
@@ -540,6 +559,41 @@ void free_module_aux(void* p) {
     delete a;
 }
 
+/* ---------------------------------------------------------------- groupfit_cross
+** groupfit_cross(a, b [, ...]): one cell of crossed factors, as a BLOB that
+** groupfit() takes as its grouping argument. NULL when any value is NULL (the
+** row is then dropped as a NULL grouping). */
+void cross_func(sqlite3_context* ctx, int argc, sqlite3_value** argv) {
+    guarded(ctx, "groupfit_cross", [&] {
+        if (argc < 2 || argc > groupfit::max_factors)
+            throw groupfit::error("takes 2 to " + std::to_string(groupfit::max_factors) +
+                                  " factors, got " + std::to_string(argc));
+        std::vector<groupfit::level> parts;
+        for (int i = 0; i < argc; ++i) {
+            sqlite3_value* v = argv[i];
+            switch (sqlite3_value_type(v)) {
+            case SQLITE_NULL: return sqlite3_result_null(ctx);
+            case SQLITE_INTEGER: parts.push_back(groupfit::level::from_integer(sqlite3_value_int64(v))); break;
+            case SQLITE_FLOAT: parts.push_back(groupfit::level::from_real(sqlite3_value_double(v))); break;
+            case SQLITE_TEXT: {
+                const unsigned char* t = sqlite3_value_text(v);
+                if (!t) throw std::bad_alloc();
+                parts.push_back(groupfit::level::from_text(
+                    std::string_view(reinterpret_cast<const char*>(t), sqlite3_value_bytes(v))));
+                break;
+            }
+            default: {
+                const void* b = sqlite3_value_blob(v);
+                parts.push_back(groupfit::level::from_blob(
+                    std::string_view(static_cast<const char*>(b ? b : ""), sqlite3_value_bytes(v))));
+            }
+            }
+        }
+        const std::string out = groupfit::encode_cross(parts);
+        sqlite3_result_blob64(ctx, out.data(), out.size(), SQLITE_TRANSIENT);
+    });
+}
+
 /* ---------------------------------------------------------------- registration */
 
 constexpr int pure = SQLITE_UTF8 | SQLITE_DETERMINISTIC | SQLITE_INNOCUOUS;
@@ -557,6 +611,7 @@ const function_entry functions[] = {
     {"groupfit", -1, pure, nullptr, groupfit_step, groupfit_final},
     {"groupfit_weighted", -1, pure, nullptr, groupfit_weighted_step, groupfit_weighted_final},
     {"groupfit_merge", 1, pure, nullptr, merge_step, merge_final},
+    {"groupfit_cross", -1, pure, cross_func, nullptr, nullptr},
     // Changes per-connection state: never usable from views, triggers or schemas.
     {"groupfit_limit", 1, SQLITE_UTF8 | SQLITE_DIRECTONLY, limit_func, nullptr, nullptr},
     {"groupfit_limit", 2, SQLITE_UTF8 | SQLITE_DIRECTONLY, limit_func, nullptr, nullptr},

@@ -207,8 +207,11 @@ def main():
     check_close(resid[0]["sum_sq"], ss_within, 1e-11, "SS within")
     check(any(r["method"] == "welch_f_test" for r in te), "Welch row present")
     te3 = rows_as_dicts(conn.execute("SELECT * FROM groupfit_tests(?, ?)", (m3, names)))
-    check([r["term"] for r in te3] == ["carrier", "distance_km", "weight_kg", "model", "residual",
-                                       "total"], "ANCOVA test rows %r" % [r["term"] for r in te3])
+    check([r["term"] for r in te3] == ["carrier", "distance_km", "weight_kg",
+                                       "carrier \u00d7 covariates", "model", "residual", "total"],
+          "ANCOVA test rows %r" % [r["term"] for r in te3])
+    check(te3[3]["method"] == "homogeneity_of_slopes" and te3[3]["df"] == 8,
+          "homogeneity of slopes row (4 extra slopes for each of 2 covariates)")
 
     # groupfit_deviations: two rows per level; vs the unweighted mean of level means.
     dv = rows_as_dicts(conn.execute("SELECT * FROM groupfit_deviations(?)", (m1,)))

@@ -520,9 +520,12 @@ std::vector<std::string> datasets_to_test() {
         for (const auto& e : fs::directory_iterator(kGoldenDir, ec)) {
             const std::string stem = e.path().stem().string();
             // multcomp_* and pairs_* come from the distribution and comparison
-            // oracles (make_multcomp_golden.*, make_pairs_golden.R), checked by
-            // test_multcomp and test_compare.
-            if (stem.rfind("multcomp_", 0) == 0 || stem.rfind("pairs_", 0) == 0) continue;
+            // oracles (make_multcomp_golden.*, make_pairs_golden.R), and cross_*
+            // from make_cross_golden.R, are checked by test_multcomp,
+            // test_compare and test_cross.
+            if (stem.rfind("multcomp_", 0) == 0 || stem.rfind("pairs_", 0) == 0 ||
+                stem.rfind("cross_", 0) == 0)
+                continue;
             if (e.path().extension() == ".csv") names.insert(stem);
         }
     // Keep the README's order first, then anything else alphabetically.

@@ -344,7 +344,7 @@ TEST(Registration, FunctionsAreExactlyTheDocumentedOnes) {
     const std::set<std::string> expected = {
         "groupfit|a|-1|" + pure,          "groupfit_weighted|a|-1|" + pure,
         "groupfit_merge|a|1|" + pure,     "groupfit_limit|s|1|" + direct,
-        "groupfit_limit|s|2|" + direct,
+        "groupfit_limit|s|2|" + direct,   "groupfit_cross|s|-1|" + pure,
     };
     EXPECT_EQ(added, expected);
     EXPECT_EQ(after.rows.size(), before.rows.size() + expected.size());
@@ -354,12 +354,13 @@ TEST(Registration, FunctionsAreExactlyTheDocumentedOnes) {
     auto named = db.query(
         "SELECT name, type, narg, flags FROM pragma_function_list WHERE name LIKE 'groupfit%' "
         "ORDER BY name, narg");
-    ASSERT_EQ(named.rows.size(), 5u);
+    ASSERT_EQ(named.rows.size(), 6u);
     EXPECT_EQ(named.rows[0][0].s, "groupfit");
-    EXPECT_EQ(named.rows[1][0].s, "groupfit_limit");
+    EXPECT_EQ(named.rows[1][0].s, "groupfit_cross");
     EXPECT_EQ(named.rows[2][0].s, "groupfit_limit");
-    EXPECT_EQ(named.rows[3][0].s, "groupfit_merge");
-    EXPECT_EQ(named.rows[4][0].s, "groupfit_weighted");
+    EXPECT_EQ(named.rows[3][0].s, "groupfit_limit");
+    EXPECT_EQ(named.rows[4][0].s, "groupfit_merge");
+    EXPECT_EQ(named.rows[5][0].s, "groupfit_weighted");
 }
 
 TEST(Registration, ModulesAreExactlyTheSevenReports) {
@@ -386,20 +387,22 @@ TEST(Registration, ReportColumnsAndHiddenArguments) {
          {"term", "label", "compares", "estimate", "std_error", "t_stat", "df", "p_value",
           "ci_lower", "ci_upper", "note", "model", "options"}},
         {"groupfit_levels",
-         {"level", "position", "n", "weight_sum", "mean", "sd", "adjusted_mean", "std_error",
-          "ci_lower", "ci_upper", "covariates_at", "note", "model", "options"}},
+         {"term", "level", "position", "n", "weight_sum", "mean", "sd", "adjusted_mean",
+          "std_error", "ci_lower", "ci_upper", "weighting", "covariates_at", "note", "model",
+          "options"}},
         {"groupfit_deviations",
          {"level", "reference", "estimate", "std_error", "t_stat", "df", "p_value", "ci_lower",
           "ci_upper", "note", "model", "options"}},
         {"groupfit_tests",
          {"term", "method", "ss_type", "df", "df_denom", "sum_sq", "mean_sq", "f_stat", "p_value",
-          "eta_sq", "partial_eta_sq", "omega_sq", "model", "options"}},
+          "eta_sq", "partial_eta_sq", "omega_sq", "note", "model", "options"}},
         {"groupfit_summary",
          {"rows_used", "rows_dropped", "dropped_null_response", "dropped_null_group",
           "dropped_null_covariate", "dropped_null_weight", "dropped_zero_weight", "weight_sum",
           "levels", "covariates", "parameters", "rank", "aliased", "df_model", "df_resid",
           "r_squared", "adj_r_squared", "resid_sd", "f_stat", "p_value", "log_lik", "aic", "bic",
-          "condition_number", "model", "options"}},
+          "condition_number", "factors", "empty_cells", "empty_cell_labels", "model_form",
+          "model", "options"}},
     };
     for (const auto& [name, cols] : expected) {
         auto info = db.query("SELECT name, hidden FROM pragma_table_xinfo(?)", {name});
@@ -972,10 +975,10 @@ TEST(BadInput, OptionErrors) {
     EXPECT_EQ(err("order=a,a"), "groupfit_coef: options: order names level 'a' twice");
     EXPECT_EQ(err("foo=1"),
               "groupfit_coef: options: unknown key 'foo' (keys: coding, base, order, conf, names, "
-              "spacing, custom, ss, at, adjust, vs, side)");
+              "spacing, custom, ss, at, adjust, vs, side, terms, slopes, means, factor, by)");
     EXPECT_EQ(err("conf"),
               "groupfit_coef: options: 'conf' is not key=value (keys: coding, base, order, conf, "
-              "names, spacing, custom, ss, at, adjust, vs, side)");
+              "names, spacing, custom, ss, at, adjust, vs, side, terms, slopes, means, factor, by)");
     EXPECT_EQ(err("coding=foo"),
               "groupfit_coef: options: coding must be one of dummy, effect, weighted_effect, "
               "helmert, reverse_helmert, successive, polynomial, custom (not 'foo')");
@@ -1242,6 +1245,7 @@ TEST(Flags, InnocuousInViewsDirectOnlyNever) {
             "+ (SELECT count(*) FROM groupfit_tests((SELECT m FROM v_fit))) "
             "+ (SELECT count(*) FROM groupfit_summary((SELECT wm FROM v_fit))) AS n");
     db.exec("CREATE VIEW v_limit AS SELECT groupfit_limit('levels') AS l");
+    db.exec("CREATE VIEW v_cross AS SELECT groupfit(y, groupfit_cross(g, x > 0)) AS m FROM t");
     db.exec("CREATE VIEW v_plain AS SELECT plain_fn(1) AS p");
     db.exec("CREATE TABLE log(l)");
     db.exec("CREATE TRIGGER t_limit AFTER INSERT ON log BEGIN SELECT groupfit_limit('levels', 5); END");
@@ -1249,11 +1253,13 @@ TEST(Flags, InnocuousInViewsDirectOnlyNever) {
     EXPECT_EQ(db.error("SELECT * FROM v_plain"), "unsafe use of plain_fn()");
     EXPECT_EQ(db.scalar("SELECT typeof(m) FROM v_fit").s, "blob");
     EXPECT_EQ(db.scalar("SELECT typeof(m) FROM v_merge").s, "blob");
+    EXPECT_EQ(db.scalar("SELECT typeof(m) FROM v_cross").s, "blob");
     auto c = db.query("SELECT * FROM v_coef");
     ASSERT_EQ(c.rows.size(), 4u);
     EXPECT_EQ(c.rows[0][0].s, "intercept");
-    // levels 3 + deviations 2 x 3 + tests 5 (group, x1, model, residual, total) + summary 1
-    EXPECT_EQ(db.scalar("SELECT n FROM v_reports").i, 3 + 6 + 5 + 1);
+    // levels 3 + deviations 2 x 3 + tests 6 (group, x1, group x x1 homogeneity of slopes,
+    // model, residual, total) + summary 1
+    EXPECT_EQ(db.scalar("SELECT n FROM v_reports").i, 3 + 6 + 6 + 1);
     EXPECT_EQ(db.error("SELECT * FROM v_limit"), "unsafe use of groupfit_limit()");
     EXPECT_EQ(db.error("INSERT INTO log VALUES (1)"), "unsafe use of groupfit_limit()");
     // DIRECTONLY holds even in a trusted schema; the plain function then works.

@@ -25,6 +25,8 @@
 
 #include "error.hpp"
 #include "factorial.hpp"
+#include "fit.hpp"
+#include "report.hpp"
 #include "options.hpp"
 #include "summary.hpp"
 
@@ -296,6 +298,37 @@ TEST(CrossOracle, InventedSeparateSlopes) {
     check_case({"invented2_separate", 2, true, "; slopes=separate"});
 }
 TEST(CrossOracle, InventedEmptyCell) { check_case({"invented2_empty", 2, false, ""}); }
+
+// One factor with a covariate: the homogeneity-of-slopes row of the one-factor
+// tests table, and slopes=separate (R: anova of common vs separate slopes, and
+// car::Anova type 3 with the covariate centred).
+TEST(CrossOracle, OneFactorSlopes) {
+    const dataset d = read_data("oneway");
+    summary s(1, false);
+    limits lim;
+    for (const auto& r : d.rows) {
+        const double v[2] = {std::stod(r[2]), std::stod(r[0])};
+        s.add_row(s.cell_for(parse_level(r[1]), lim), v, 1.0);
+    }
+    const std::vector<golden_row> g = read_golden("oneway");
+    const table common = tests_report(fit(s, parse_options("names=a, x")));
+    const table sep = cross_tests_report(s, parse_options("names=a, x; slopes=separate"));
+    int checks = 0;
+    for (const golden_row& r : g) {
+        if (r.what == "homogeneity") {
+            const auto* row = find_row(common, "method", "homogeneity_of_slopes");
+            ASSERT_NE(row, nullptr);
+            EXPECT_EQ(as_text((*row)[column(common, "term")]), "a \u00d7 x");
+            expect_close(as_double((*row)[column(common, r.stat)]), r.value, 1e-9, 1e-15, "homogeneity " + r.stat);
+        } else {
+            const auto* row = find_row(sep, "term", r.label, "method", "f_test");
+            ASSERT_NE(row, nullptr) << r.label;
+            expect_close(as_double((*row)[column(sep, r.stat)]), r.value, 1e-9, 1e-15, r.label + " " + r.stat);
+        }
+        ++checks;
+    }
+    EXPECT_EQ(checks, 16);
+}
 
 // --- empty cells: what is reported (common practice: a cell-means model with
 // an empty cell cannot estimate the equal-weight marginal means that need it)

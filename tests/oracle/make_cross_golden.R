@@ -169,4 +169,32 @@ write_case("invented2_separate", inv2, c("a", "b", "a:b", "x", "a:x"), c("a", "b
 # An empty cell in an invented two-factor design.
 emp <- inv2[!(inv2$a == "west" & inv2$b == "plus"), c("y", "a", "b")]
 write_case("invented2_empty", emp, c("a", "b", "a:b"), c("a", "b"), empty = TRUE)
+# One factor with a covariate (mtcars: mpg by cylinders, weight): the
+# homogeneity-of-slopes test of the common-slopes model, and the separate-
+# slopes model (covariate centred, as above).
+one <- data.frame(y = mtcars$mpg, a = mtcars$cyl, x = mtcars$wt)
+local({
+  d <- one; d$a <- factor(d$a); d$x <- d$x - mean(d$x)
+  out <- list()
+  add <- function(what, label, stat, value)
+    out[[length(out) + 1L]] <<- data.frame(case = "oneway", what = what, label = label, stat = stat,
+                                           value = fmt(value))
+  common <- lm(y ~ a + x, data = d, contrasts = list(a = "contr.sum"))
+  sep <- lm(y ~ a + x + a:x, data = d, contrasts = list(a = "contr.sum"))
+  h <- anova(common, sep)
+  add("homogeneity", "h", "df", h$Df[2]); add("homogeneity", "h", "sum_sq", h$`Sum of Sq`[2])
+  add("homogeneity", "h", "f_stat", h$F[2]); add("homogeneity", "h", "p_value", h$`Pr(>F)`[2])
+  a3 <- car::Anova(sep, type = 3)
+  for (t in setdiff(rownames(a3), c("Residuals", "(Intercept)"))) {
+    l <- gsub(":", " \u00d7 ", t, fixed = TRUE)
+    add("test3", l, "df", a3[t, "Df"]); add("test3", l, "sum_sq", a3[t, "Sum Sq"])
+    add("test3", l, "f_stat", a3[t, "F value"]); add("test3", l, "p_value", a3[t, "Pr(>F)"])
+  }
+  write.csv(one, file.path(oracle_dir, "data", "cross_oneway.csv"), row.names = FALSE, quote = FALSE)
+  con <- file(file.path(oracle_dir, "golden", "cross_oneway.csv"), "w")
+  writeLines(paste0("# R ", R.version$major, ".", R.version$minor, " lm, car ",
+                    packageVersion("car"), "; tests/oracle/make_cross_golden.R"), con)
+  write.csv(do.call(rbind, out), con, row.names = FALSE, quote = FALSE)
+  close(con)
+})
 cat("wrote cross_* golden files\n")

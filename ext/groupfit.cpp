@@ -44,6 +44,7 @@ SQLITE_EXTENSION_INIT1
 #include <cstdlib>
 #include <cstring>
 #include <functional>
+#include <limits>
 #include <memory>
 #include <new>
 #include <string>
@@ -296,7 +297,7 @@ struct report_kind {
 ** general model of core/factorial.hpp; a one-factor model with common slopes
 ** to the double-double fit of core/fit.hpp. */
 bool general_model(const summary& s, const groupfit::options& o) {
-    return groupfit::crossed_factors(s) > 0 || o.slopes != groupfit::slopes_kind::common;
+    return groupfit::crossed_factors(s) > 0 || o.slopes != groupfit::slopes_kind::common || o.has_terms;
 }
 
 groupfit::table make_coef(const summary& s, const groupfit::options& o, std::string_view) {
@@ -396,6 +397,8 @@ int report_disconnect(sqlite3_vtab* vt) {
     return SQLITE_OK;
 }
 
+constexpr int missing_shift = 8;  // idxNum bits above the argument mask: missing argument + 1
+
 int report_best_index(sqlite3_vtab* tab, sqlite3_index_info* info) {
     auto* vt = reinterpret_cast<report_vtab*>(tab);
     int where[3] = {-1, -1, -1};
@@ -409,13 +412,14 @@ int report_best_index(sqlite3_vtab* tab, sqlite3_index_info* info) {
     }
     for (int a = 0; a < vt->nargs; ++a)
         if (where[a] < 0 && seen_unusable[a]) return SQLITE_CONSTRAINT;  // try another plan
+    // A plan without the model (or weights) is possible but never wanted: the
+    // planner also asks about each branch of an OR on the report's columns
+    // alone. Such a plan gets a prohibitive cost and fails in xFilter if it is
+    // ever chosen (the argument really is missing then).
     const int required = vt->nargs == 3 ? 2 : 1;  // model, and weights when taken
+    int missing = -1;
     for (int a = 0; a < required; ++a)
-        if (where[a] < 0) {
-            set_vtab_error(tab, std::string(vt->kind->name) + ": the " +
-                                    (a == 0 ? "model" : "weights") + " argument is missing");
-            return SQLITE_ERROR;
-        }
+        if (where[a] < 0 && missing < 0) missing = a;
     int argv_index = 1, idx = 0;
     for (int a = 0; a < vt->nargs; ++a) {
         if (where[a] < 0) continue;
@@ -426,6 +430,11 @@ int report_best_index(sqlite3_vtab* tab, sqlite3_index_info* info) {
     info->idxNum = idx;
     info->estimatedCost = 10.0;
     info->estimatedRows = 10;
+    if (missing >= 0) {
+        info->idxNum |= (missing + 1) << missing_shift;
+        info->estimatedCost = 1e300;
+        info->estimatedRows = std::numeric_limits<sqlite3_int64>::max() / 2;
+    }
     return SQLITE_OK;
 }
 
@@ -456,6 +465,11 @@ int report_filter(sqlite3_vtab_cursor* c, int idx, const char*, int argc, sqlite
     cur->result = groupfit::table{};
     cur->row = 0;
     clear_args(cur);
+    if (const int missing = (idx >> missing_shift) - 1; missing >= 0) {
+        set_vtab_error(c->pVtab, std::string(vt->kind->name) + ": the " +
+                                     (missing == 0 ? "model" : "weights") + " argument is missing");
+        return SQLITE_ERROR;
+    }
     sqlite3_value* bound[3] = {nullptr, nullptr, nullptr};
     for (int a = 0, next = 0; a < vt->nargs; ++a)
         if ((idx & (1 << a)) && next < argc) {

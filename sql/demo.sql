@@ -139,3 +139,27 @@ SELECT level AS carrier, round(adjusted_mean, 2) AS minutes, round(ci_lower, 2) 
        round(ci_upper, 2) AS ci_upper, covariates_at
   FROM groupfit_levels((SELECT model FROM fits WHERE name = 'carrier+distance+weight'),
                        'names=carrier, distance_km, weight_kg; at=distance_km:25, weight_kg:3');
+
+.print
+.print == 16. Two factors: carrier by shift, with distance and weight (groupfit_cross)
+CREATE TEMP TABLE two_way AS
+  SELECT groupfit(minutes, groupfit_cross(carrier, shift), distance_km, weight_kg) AS model
+    FROM deliveries;
+SELECT term, method, ss_type, df, round(sum_sq, 1) AS sum_sq, round(f_stat, 2) AS f_stat,
+       iif(p_value IS NULL, NULL, printf('%.3g', p_value)) AS p_value, note
+  FROM groupfit_tests((SELECT model FROM two_way), 'names=carrier, shift, distance_km, weight_kg');
+
+.print
+.print == 17. Marginal means of each factor (every cell weighted equally)
+SELECT term, level, n, round(mean, 2) AS raw_mean, round(adjusted_mean, 2) AS adjusted_mean,
+       round(std_error, 3) AS std_error, weighting
+  FROM groupfit_levels((SELECT model FROM two_way), 'names=carrier, shift, distance_km, weight_kg')
+ WHERE term IN ('carrier', 'shift');
+
+.print
+.print == 18. Carriers compared within each shift (simple effects, Tukey-Kramer per shift; rows with adjusted p < 0.05)
+SELECT within, level_a, level_b, round(estimate, 2) AS difference,
+       printf('%.3g', p_adjusted) AS p_tukey, round(ci_lower, 2) AS ci_lower, round(ci_upper, 2) AS ci_upper
+  FROM groupfit_pairs((SELECT model FROM two_way),
+                      'names=carrier, shift, distance_km, weight_kg; by=shift')
+ WHERE p_adjusted < 0.05;

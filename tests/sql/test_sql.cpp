@@ -1389,3 +1389,97 @@ TEST(Scale, ModelsFromDifferentFormatVersionsMerge) {
         "SELECT groupfit(y, g, x) FROM (SELECT * FROM t UNION ALL SELECT * FROM t)");
     expect_same_coef(db, merged, twice, 1e-12);
 }
+
+// ------------------------------------------------------------- crossed factors
+// Statistical results of crossed models are checked against R in
+// tests/core/test_cross.cpp; here: the SQL surface (groupfit_cross, NULLs,
+// merges, GROUP BY, errors, and a query planner corner).
+
+namespace {
+void make_crossed(database& db) {
+    db.exec("CREATE TABLE c(seg INTEGER, a TEXT, b INTEGER, y REAL, x REAL)");
+    db.exec("WITH RECURSIVE n(i) AS (SELECT 0 UNION ALL SELECT i + 1 FROM n WHERE i < 239) "
+            "INSERT INTO c SELECT i % 2, char(97 + i % 3), i % 4 / 2, "
+            "(i * 7919 % 1000) / 100.0 + (i % 3) + 2 * (i % 4 / 2), (i * 104729 % 997) / 100.0 FROM n");
+}
+}  // namespace
+
+TEST(Crossed, CrossValuesNullsAndArity) {
+    database db;
+    make_crossed(db);
+    EXPECT_EQ(db.scalar("SELECT typeof(groupfit_cross('a', 1))").s, "blob");
+    EXPECT_EQ(db.scalar("SELECT groupfit_cross('a', NULL) IS NULL").i, 1);
+    EXPECT_EQ(db.scalar("SELECT groupfit_cross(3.0, 'x') = groupfit_cross(3, 'x')").i, 1);
+    EXPECT_EQ(db.error("SELECT groupfit_cross('a')"), "groupfit_cross: takes 2 to 8 factors, got 1");
+    EXPECT_EQ(db.error("SELECT groupfit_cross(1, 2, 3, 4, 5, 6, 7, 8, 9)"),
+              "groupfit_cross: takes 2 to 8 factors, got 9");
+    // A NULL factor drops the row as a NULL grouping.
+    db.exec("INSERT INTO c VALUES (0, NULL, 1, 5.0, 1.0)");
+    auto s = db.query("SELECT rows_used, dropped_null_group, factors, levels FROM groupfit_summary("
+                      "(SELECT groupfit(y, groupfit_cross(a, b), x) FROM c))");
+    EXPECT_EQ(s.rows[0][0].i, 240);
+    EXPECT_EQ(s.rows[0][1].i, 1);
+    EXPECT_EQ(s.rows[0][2].i, 2);
+    EXPECT_EQ(s.rows[0][3].i, 6);
+    // Mixed arity and crossed-with-plain are errors as the rows arrive.
+    EXPECT_EQ(db.error("SELECT groupfit(y, iif(rowid % 2, groupfit_cross(a, b), groupfit_cross(a, b, seg))) FROM c"),
+              "groupfit: the grouping mixes groupfit_cross cells of 2 and 3 factors; give every row the "
+              "same factors");
+    EXPECT_EQ(db.error("SELECT groupfit(y, iif(rowid % 2, groupfit_cross(a, b), a)) FROM c"),
+              "groupfit: the grouping mixes groupfit_cross cells with plain values (level b); give every "
+              "row a groupfit_cross of the same factors");
+    // Four factors.
+    auto t = db.query("SELECT term FROM groupfit_tests((SELECT groupfit(y, groupfit_cross(a, b, seg, x > 5)) FROM c), "
+                      "'terms=main; names=a, b, s, big') WHERE method = 'f_test'");
+    ASSERT_EQ(t.rows.size(), 5u);
+    EXPECT_EQ(t.rows[3][0].s, "big");
+}
+
+TEST(Crossed, MergesAndSegmentsEqualTheOnePassModel) {
+    database db;
+    make_crossed(db);
+    const std::string one = "SELECT printf('%.12g', sum_sq) FROM groupfit_tests((SELECT groupfit(y, groupfit_cross(a, b), x) FROM c)) WHERE term = 'factor1 \u00d7 factor2'";
+    const std::string merged =
+        "SELECT printf('%.12g', sum_sq) FROM groupfit_tests((SELECT groupfit_merge(m) FROM "
+        "(SELECT groupfit(y, groupfit_cross(a, b), x) AS m FROM c GROUP BY seg))) WHERE term = 'factor1 \u00d7 factor2'";
+    EXPECT_EQ(db.scalar(one).s, db.scalar(merged).s);
+    auto per = db.query("SELECT seg, (SELECT count(*) FROM groupfit_levels(m)) FROM "
+                        "(SELECT seg, groupfit(y, groupfit_cross(a, b)) AS m FROM c GROUP BY seg) ORDER BY seg");
+    ASSERT_EQ(per.rows.size(), 2u);
+    EXPECT_EQ(per.rows[0][1].i, 6 + 3 + 2);  // cells, then the levels of a and of b
+    // Crossed and plain models do not merge into a usable model.
+    EXPECT_EQ(db.error("SELECT * FROM groupfit_tests((SELECT groupfit_merge(m) FROM ("
+                       "SELECT groupfit(y, groupfit_cross(a, b)) AS m FROM c UNION ALL "
+                       "SELECT groupfit(y, 'zz') FROM c)))"),
+              "groupfit_tests: the grouping mixes groupfit_cross cells with plain values (level zz); give "
+              "every row a groupfit_cross of the same factors");
+}
+
+TEST(Crossed, OptionErrorsAndPlannerOr) {
+    database db;
+    make_crossed(db);
+    const std::string m = db.model("SELECT groupfit(y, groupfit_cross(a, b), x) FROM c");
+    const std::string plain = db.model("SELECT groupfit(y, a) FROM c");
+    auto err = [&](const std::string& model, const std::string& opts, const char* f) {
+        return db.error(std::string("SELECT * FROM ") + f + "(?1, ?2)", {blob{model}, opts});
+    };
+    EXPECT_EQ(err(m, "names=p, q; by=r", "groupfit_pairs"),
+              "groupfit_pairs: options: by names 'r', which is not a factor of the model (factors: p, q)");
+    EXPECT_EQ(err(plain, "by=a", "groupfit_pairs"), "groupfit_pairs: options: by= needs crossed factors (groupfit_cross)");
+    EXPECT_EQ(err(plain, "terms=main", "groupfit_tests"),
+              "groupfit_tests: options: terms= applies to crossed factors (groupfit_cross); this model has one grouping");
+    EXPECT_EQ(err(plain, "slopes=separate", "groupfit_tests"),
+              "groupfit_tests: options: slopes=separate needs covariates; this model has none");
+    EXPECT_EQ(err(m, "terms=three_way", "groupfit_tests"),
+              "groupfit_tests: options: terms must be one of full, main, two_way (not 'three_way')");
+    EXPECT_EQ(err(m, "", "groupfit_deviations"),
+              "groupfit_deviations: groupfit_deviations applies to one-factor models with common slopes; "
+              "for crossed factors use groupfit_levels (marginal means) and groupfit_contrast");
+    // An OR over report columns: the planner asks about plans without the
+    // model; they must not fail the query.
+    auto r = db.query("SELECT count(*) FROM groupfit_levels(?1) WHERE term = 'factor1' OR level LIKE 'a/%'",
+                      {blob{m}});
+    EXPECT_EQ(r.rows[0][0].i, 3 + 2);
+    EXPECT_EQ(db.error("SELECT * FROM groupfit_levels WHERE term = 'x'"),
+              "groupfit_levels: the model argument is missing");
+}

@@ -47,6 +47,8 @@ struct estimate {
 class fit {
 public:
     fit(const summary& s, const options& o);
+    /// A fit refers to its summary: it must outlive the fit.
+    fit(summary&&, const options&) = delete;
 
     // --- the levels, in report order (ascending, or as set by order=)
     std::size_t levels() const { return cell_.size(); }

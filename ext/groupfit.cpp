@@ -466,7 +466,8 @@ int report_filter(sqlite3_vtab_cursor* c, int idx, const char*, int argc, sqlite
     cur->row = 0;
     clear_args(cur);
     if (const int missing = (idx >> missing_shift) - 1; missing >= 0) {
-        set_vtab_error(c->pVtab, std::string(vt->kind->name) + ": the " +
+        sqlite3_vtab* tab = c->pVtab;
+        set_vtab_error(tab, std::string(vt->kind->name) + ": the " +
                                      (missing == 0 ? "model" : "weights") + " argument is missing");
         return SQLITE_ERROR;
     }

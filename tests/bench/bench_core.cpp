@@ -32,6 +32,8 @@
 #include <utility>
 #include <vector>
 
+#include "compare.hpp"
+#include "factorial.hpp"
 #include "fit.hpp"
 #include "options.hpp"
 #include "report.hpp"
@@ -252,6 +254,80 @@ BENCHMARK(BM_Report_levels)
 BENCHMARK(BM_Report_deviations)->ArgName("levels")->Arg(100)->Unit(benchmark::kMicrosecond);
 BENCHMARK(BM_Report_tests)->ArgName("levels")->Arg(100)->Unit(benchmark::kMicrosecond);
 BENCHMARK(BM_Report_summary)->ArgName("levels")->Arg(100)->Unit(benchmark::kMicrosecond);
+
+// ----------------------------------------------------------- comparisons
+// Issue targets: Tukey-Kramer over a 100-level model (4,950 rows) and Dunnett
+// for 50 treatments against a control, each under 200 ms.
+
+groupfit::table pairs(const groupfit::fit& f, const summary&) { return groupfit::pairs_report(f); }
+
+void BM_Pairs_tukey(benchmark::State& state) { run_report(state, pairs, ""); }
+BENCHMARK(BM_Pairs_tukey)->ArgName("levels")->Arg(100)->Unit(benchmark::kMillisecond);
+
+void BM_Pairs_dunnett(benchmark::State& state) { run_report(state, pairs, "vs=g0"); }
+BENCHMARK(BM_Pairs_dunnett)->ArgName("levels")->Arg(11)->Arg(51)->Unit(benchmark::kMillisecond);
+
+// Without covariates the correlation has product form (exact integral).
+void BM_Pairs_dunnett_nocov(benchmark::State& state) {
+    const summary& s = cached_model(static_cast<std::size_t>(state.range(0)), 0);
+    const groupfit::options o = groupfit::parse_options("vs=g0");
+    std::size_t rows = 0;
+    for (auto _ : state) {
+        const groupfit::fit f(s, o);
+        groupfit::table t = groupfit::pairs_report(f);
+        rows = t.rows.size();
+        benchmark::DoNotOptimize(t.rows.data());
+    }
+    state.counters["report_rows"] = static_cast<double>(rows);
+}
+BENCHMARK(BM_Pairs_dunnett_nocov)->ArgName("levels")->Arg(51)->Unit(benchmark::kMillisecond);
+
+void BM_Pairs_holm(benchmark::State& state) { run_report(state, pairs, "adjust=holm"); }
+BENCHMARK(BM_Pairs_holm)->ArgName("levels")->Arg(100)->Unit(benchmark::kMillisecond);
+
+// ----------------------------------------------------------- crossed factors
+// A models of a x b crossed cells (every cell observed), 2 covariates.
+const summary& cached_crossed(std::size_t a, std::size_t b) {
+    static std::map<std::pair<std::size_t, std::size_t>, summary> cache;
+    auto key = std::make_pair(a, b);
+    auto it = cache.find(key);
+    if (it != cache.end()) return it->second;
+    const int p = 2;
+    const rows_data d = make_rows(a * b * 20, p, a * b, 99, true);
+    summary s(p, false);
+    const limits lim = big_limits();
+    std::vector<std::string> keys;
+    for (std::size_t g = 0; g < a * b; ++g)
+        keys.push_back(groupfit::encode_cross({groupfit::level::from_integer(std::int64_t(g / b)),
+                                               groupfit::level::from_integer(std::int64_t(g % b))}));
+    for (std::size_t i = 0; i < d.size(); ++i) {
+        const std::string& k = keys[d.level[i]];
+        s.add_row(s.cell_for(level_kind::blob, k.data(), k.size(), lim), &d.values[i * (p + 1)], 1.0);
+    }
+    return cache.emplace(key, std::move(s)).first->second;
+}
+
+using cross_fn = groupfit::table (*)(const summary&, const groupfit::options&);
+void run_cross(benchmark::State& state, cross_fn make, const char* options_text) {
+    const summary& s = cached_crossed(static_cast<std::size_t>(state.range(0)),
+                                      static_cast<std::size_t>(state.range(1)));
+    const groupfit::options o = groupfit::parse_options(options_text);
+    std::size_t rows = 0;
+    for (auto _ : state) {
+        groupfit::table t = make(s, o);
+        rows = t.rows.size();
+        benchmark::DoNotOptimize(t.rows.data());
+    }
+    state.counters["report_rows"] = static_cast<double>(rows);
+}
+void BM_Cross_tests(benchmark::State& state) { run_cross(state, groupfit::cross_tests_report, ""); }
+void BM_Cross_levels(benchmark::State& state) { run_cross(state, groupfit::cross_levels_report, ""); }
+void BM_Cross_pairs_by(benchmark::State& state) {
+    run_cross(state, groupfit::cross_pairs_report, "names=a, b; by=b");
+}
+BENCHMARK(BM_Cross_tests)->ArgNames({"a", "b"})->Args({5, 3})->Args({20, 10})->Unit(benchmark::kMillisecond);
+BENCHMARK(BM_Cross_levels)->ArgNames({"a", "b"})->Args({5, 3})->Args({20, 10})->Unit(benchmark::kMillisecond);
+BENCHMARK(BM_Cross_pairs_by)->ArgNames({"a", "b"})->Args({5, 3})->Args({20, 10})->Unit(benchmark::kMillisecond);
 
 // ------------------------------------------------------------- BLOB round trip
 

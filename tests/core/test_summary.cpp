@@ -82,7 +82,8 @@ summary golden_rows() {
 // decode and give the fit of their rows. Reference: a fresh summary of the
 // same rows (tolerance 1e-12 relative: version 1 stored a double factor).
 TEST(Summary, GoldenBlobsOfEveryFormatVersionStillLoad) {
-    const fit fresh(golden_rows(), parse_options("coding=effect"));
+    const summary rows = golden_rows();
+    const fit fresh(rows, parse_options("coding=effect"));
     const table want = coef_report(fresh);
     for (const char* name : {"model_v1.hex", "model_v2.hex"}) {
         const std::string blob =

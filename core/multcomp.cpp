@@ -4,6 +4,7 @@
 
 #include <algorithm>
 #include <array>
+#include <map>
 #include <boost/math/distributions/students_t.hpp>
 #include <boost/math/special_functions/erf.hpp>
 #include <boost/math/quadrature/gauss_kronrod.hpp>
@@ -637,7 +638,70 @@ public:
     /// log of H(x) = P(some comparison beyond x | S = 1), tilted by e^{x^2/2}
     /// when x > 0 (returns log H(x) + x^2/2); plain log H(x) when x <= 0.
     /// rel_err receives the relative quadrature error estimate.
+    ///
+    /// With cache(true), values come from Chebyshev interpolants of this
+    /// smooth function on intervals of length 1 (breakpoint at 0, where the
+    /// tilt starts), built from 20 direct evaluations per interval on first
+    /// use: every threshold of a set of adjusted p-values, and every step of a
+    /// quantile search, then shares the inner integrals. The interpolation
+    /// error (bounded by the last coefficients, about 1e-14 here) is added to
+    /// rel_err.
     double log_tail(double x, double* rel_err = nullptr) const {
+        if (!cache_on_ || !(std::fabs(x) < 64.0)) return log_tail_direct(x, rel_err);
+        if (x <= 0 && two_sided_) {
+            if (rel_err) *rel_err = 0;
+            return 0.0;
+        }
+        const long cell = static_cast<long>(std::floor(x));
+        auto it = cache_.find(cell);
+        if (it == cache_.end()) it = cache_.emplace(cell, build_piece(double(cell))).first;
+        const piece& pc = it->second;
+        // Clenshaw on t in [-1, 1].
+        const double t = 2.0 * (x - double(cell)) - 1.0;
+        double b1 = 0, b2 = 0;
+        for (int k = cheb_nodes - 1; k >= 1; --k) {
+            const double b0 = 2 * t * b1 - b2 + pc.coef[k];
+            b2 = b1;
+            b1 = b0;
+        }
+        if (rel_err) *rel_err = pc.err;
+        return t * b1 - b2 + pc.coef[0];
+    }
+    void cache(bool on) const { cache_on_ = on; }
+
+private:
+    static constexpr int cheb_nodes = 20;
+    struct piece {
+        std::array<double, cheb_nodes> coef;
+        double err;
+    };
+    piece build_piece(double left) const {
+        std::array<double, cheb_nodes> v{};
+        double err = 0;
+        for (int j = 0; j < cheb_nodes; ++j) {
+            const double t = std::cos(M_PI * (j + 0.5) / cheb_nodes);
+            double e = 0;
+            // Nodes stay inside (left, left + 1): the tilt switch at 0 is never crossed.
+            v[j] = log_tail_direct(left + 0.5 * (t + 1.0), &e);
+            err = std::max(err, e);
+        }
+        piece pc{};
+        for (int k = 0; k < cheb_nodes; ++k) {
+            double sum = 0;
+            for (int j = 0; j < cheb_nodes; ++j)
+                sum += v[j] * std::cos(M_PI * k * (j + 0.5) / cheb_nodes);
+            pc.coef[k] = (k == 0 ? 1.0 : 2.0) * sum / cheb_nodes;
+        }
+        // Truncation error: the size of the last coefficients (absolute error
+        // of the log is the relative error of H).
+        pc.err = err + std::fabs(pc.coef[cheb_nodes - 1]) + std::fabs(pc.coef[cheb_nodes - 2]);
+        return pc;
+    }
+    mutable bool cache_on_ = false;
+    mutable std::map<long, piece> cache_;
+
+public:
+    double log_tail_direct(double x, double* rel_err = nullptr) const {
         if (x <= 0 && two_sided_) {
             if (rel_err) *rel_err = 0;
             return 0.0;  // P(max |T| > x) = 1
@@ -746,6 +810,14 @@ private:
     double reach_ = 0;                       // max |lambda_i|
     std::vector<double> lam_, sig_, mult_;  // distinct lambda_i, sigma_i, multiplicities
 };
+
+dunnett_result product_upper(const dunnett_product& d, double c, double df) {
+    if (!valid_df(df) || std::isnan(c)) return {nan, nan, method_product};
+    if (std::isinf(c)) return {c > 0 ? 0.0 : 1.0, 0.0, method_product};
+    auto [lp, rel] = d.log_upper(c, df);
+    double p = std::exp(lp);
+    return {p, p * rel + 1e-15, method_product};
+}
 
 dunnett_result product_upper(double c, const Eigen::VectorXd& lambda, double df, dunnett_sides sides) {
     dunnett_product d(lambda, sides == dunnett_sides::two_sided);
@@ -1042,6 +1114,7 @@ dunnett_result dunnett_product_cdf(double c, const Eigen::VectorXd& lambda, doub
 dunnett_result dunnett_product_quantile(double level, const Eigen::VectorXd& lambda, double df,
                                         dunnett_sides sides) {
     dunnett_product d(lambda, sides == dunnett_sides::two_sided);
+    d.cache(true);  // the root search evaluates many nearby thresholds
     if (!valid_df(df) || !(level > 0 && level < 1)) return {nan, nan, method_product};
     const double target = std::log1p(-level);
     auto f = [&](double c) { return d.log_upper(c, df).first - target; };
@@ -1120,6 +1193,15 @@ std::vector<dunnett_result> dunnett_adjusted_p(const Eigen::VectorXd& t, const E
         throw groupfit::error("dunnett: there must be one statistic per row of the correlation matrix");
     std::vector<dunnett_result> out;
     const bool two = sides == dunnett_sides::two_sided;
+    if (auto l = product_form_factors(corr)) {
+        // One product-form object for every statistic: the inner integrals are
+        // shared through its interpolation cache.
+        dunnett_product d(*l, two);
+        d.cache(t.size() > 1);
+        for (Eigen::Index i = 0; i < t.size(); ++i)
+            out.push_back(product_upper(d, two ? std::fabs(t[i]) : t[i], df));
+        return out;
+    }
     for (Eigen::Index i = 0; i < t.size(); ++i)
         out.push_back(dunnett_upper_p(two ? std::fabs(t[i]) : t[i], corr, df, sides, qmc_tolerance));
     return out;

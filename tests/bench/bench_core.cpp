@@ -33,6 +33,7 @@
 #include <vector>
 
 #include "compare.hpp"
+#include "multcomp.hpp"
 #include "factorial.hpp"
 #include "fit.hpp"
 #include "options.hpp"
@@ -281,6 +282,19 @@ void BM_Pairs_dunnett_nocov(benchmark::State& state) {
     state.counters["report_rows"] = static_cast<double>(rows);
 }
 BENCHMARK(BM_Pairs_dunnett_nocov)->ArgName("levels")->Arg(51)->Unit(benchmark::kMillisecond);
+
+// The studentized range alone: 4,950 upper tails for 100 means plus one quantile.
+void BM_Srange_4950(benchmark::State& state) {
+    std::vector<double> qs(4950);
+    for (std::size_t i = 0; i < qs.size(); ++i) qs[i] = 9.0 * double((i * 7919) % 4950) / 4950.0;
+    for (auto _ : state) {
+        double sum = 0;
+        for (double v : qs) sum += groupfit::dist::srange_upper_p(v, 100, 900);
+        sum += groupfit::dist::srange_quantile(0.95, 100, 900);
+        benchmark::DoNotOptimize(sum);
+    }
+}
+BENCHMARK(BM_Srange_4950)->Unit(benchmark::kMillisecond);
 
 void BM_Pairs_holm(benchmark::State& state) { run_report(state, pairs, "adjust=holm"); }
 BENCHMARK(BM_Pairs_holm)->ArgName("levels")->Arg(100)->Unit(benchmark::kMillisecond);

@@ -65,6 +65,23 @@ public:
         return a;
     }
     std::string not_estimable_reason() const override { return "an aliased covariate confounds it"; }
+    bool many_to_one_lowrank(std::size_t control, const std::vector<std::size_t>& treated,
+                             dist::lowrank_covariance& out) const override {
+        const std::size_t m = treated.size();
+        const int kept = static_cast<int>(f_.covariance_loading(f_.level_combination(
+                                              Eigen::VectorXd::Zero(f_.levels()), at_)).size());
+        out.a.resize(m);
+        out.V.resize(m, 1 + kept);
+        for (std::size_t i = 0; i < m; ++i) {
+            Eigen::VectorXd k = Eigen::VectorXd::Zero(f_.levels());
+            k[treated[i]] = 1.0;
+            k[control] = -1.0;
+            out.a[i] = 1.0 / f_.level_weight(treated[i]);
+            out.V(i, 0) = 1.0 / std::sqrt(f_.level_weight(control));
+            if (kept > 0) out.V.row(i).tail(kept) = f_.covariance_loading(f_.level_combination(k, at_)).transpose();
+        }
+        return true;
+    }
 
 private:
     const fit& f_;
@@ -244,13 +261,30 @@ void pairs_rows(const mean_family& f, const options& o, const std::string& withi
             stat[a] = two ? std::fabs(t) : side == side_kind::greater ? t : -t;
         }
         if (!live.empty()) {
-            const auto res = dist::dunnett_adjusted_p(stat, corr, df, sides);
+            // With a covariance of the form diag + low rank (the levels of a
+            // model with covariates), the conditional integral of that form;
+            // otherwise the general routines.
+            std::vector<std::size_t> treated;
+            for (std::size_t a = 0; a < live.size(); ++a) treated.push_back(pairs[live[a]].first);
+            dist::lowrank_covariance lr;
+            std::vector<dist::dunnett_result> res;
+            dist::dunnett_result q{};
+            // The general QMC works in m dimensions and is fast for few
+            // comparisons; the low-rank integral pays off from about 8.
+            if (live.size() >= 8 && f.many_to_one_lowrank(pairs[live[0]].second, treated, lr) &&
+                lr.V.cols() > 1) {
+                auto fam = dist::dunnett_lowrank(stat, lr, df, sides, o.conf);
+                res = std::move(fam.adjusted_p);
+                q = fam.quantile;
+            } else {
+                res = dist::dunnett_adjusted_p(stat, corr, df, sides);
+                q = dist::dunnett_quantile(o.conf, corr, df, sides);
+            }
             double err = 0.0;
             for (std::size_t a = 0; a < live.size(); ++a) {
                 adj[live[a]] = std::min(1.0, std::max(0.0, res[a].value));
                 err = std::max(err, res[a].error_bound);
             }
-            const auto q = dist::dunnett_quantile(o.conf, corr, df, sides);
             crit = q.value;
             dunnett_method = std::string(res[0].method) + ", p error <= " + short_real(std::max(err, 1e-15), 2);
         }

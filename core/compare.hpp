@@ -32,6 +32,7 @@
 
 #include <string_view>
 
+#include "multcomp.hpp"
 #include "report.hpp"
 
 namespace groupfit {
@@ -59,6 +60,14 @@ public:
     virtual std::string at_text() const = 0;
     /// Why a combination is not estimable, for the note column.
     virtual std::string not_estimable_reason() const = 0;
+    /// For comparisons of `treated` means with the `control` mean: their
+    /// covariance over sigma^2 as diag(a) + V V' (dist::lowrank_covariance),
+    /// when the family knows it; false otherwise.
+    virtual bool many_to_one_lowrank(std::size_t control, const std::vector<std::size_t>& treated,
+                                     dist::lowrank_covariance& out) const {
+        (void)control, (void)treated, (void)out;
+        return false;
+    }
 };
 
 /// Appends the pairwise (or many-to-one, vs=) comparisons of one family to t,

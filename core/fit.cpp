@@ -336,6 +336,13 @@ estimate fit::level_mean_at(std::size_t i, const Eigen::VectorXd& at) const {
     return e;
 }
 
+Eigen::VectorXd fit::covariance_loading(const linear_function& f) const {
+    Eigen::VectorXd u = d_prime_a(f.a);
+    for (std::size_t b = 0; b < kept_.size(); ++b) u[b] -= f.g[kept_[b]];
+    if (kept_.empty()) return u;
+    return r_.transpose().triangularView<Eigen::Lower>().solve(u);
+}
+
 double fit::scaled_covariance(const linear_function& f1, const linear_function& f2) const {
     Eigen::VectorXd u1 = d_prime_a(f1.a), u2 = d_prime_a(f2.a);
     for (std::size_t b = 0; b < kept_.size(); ++b) {

@@ -92,6 +92,9 @@ public:
     estimate level_mean_at(std::size_t i, const Eigen::VectorXd& at) const;
     /// Covariance of two linear functions divided by sigma^2.
     double scaled_covariance(const linear_function& f1, const linear_function& f2) const;
+    /// The covariate part of that covariance as a loading vector z (over the
+    /// kept covariates): scaled_covariance(f1, f2) = sum a1 a2 / W + z1 . z2.
+    Eigen::VectorXd covariance_loading(const linear_function& f) const;
 
     /// A linear function of a raw-scale quantity: sum_i k_i * (mean of level i at
     /// covariates = at), with `at` on the raw scale.

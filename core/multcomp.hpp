@@ -174,4 +174,39 @@ std::vector<dunnett_result> dunnett_adjusted_p(const Eigen::VectorXd& t, const E
                                                double df, dunnett_sides sides,
                                                double qmc_tolerance = 1e-5);
 
+// ---------------------------------------------------------------------------
+// Dunnett for covariances of the form diag(a) + V V' (many-to-one comparisons
+// in a model with covariates)
+// ---------------------------------------------------------------------------
+/// The covariance (over sigma^2) of m comparisons with a control, written as
+/// diag(a) + V V' with a_i > 0 and V m x r: in a one-factor model a_i = 1/W_i,
+/// V's first column is 1/sqrt(W_0) (the shared control) and the others are the
+/// covariate loadings. Given w ~ N(0, I_r) the comparisons are independent, so
+/// P(max |T_i| <= c) = E_{w,S} prod_i P(|T_i| <= c | w, S): an (r + 1)-
+/// dimensional integral instead of an m-dimensional one.
+struct lowrank_covariance {
+    Eigen::VectorXd a;
+    Eigen::MatrixXd V;
+};
+/// Adjusted p-values (as dunnett_adjusted_p) and the critical value at `level`
+/// for such a covariance, computed together. Method: the product form of the
+/// first column of V (exact integral, interpolated inner integrals) as a
+/// control variate, plus the difference of the two conditional integrands
+/// estimated by randomized QMC over (w, S) (Richtmyer points, baker's transform,
+/// antithetic pairs, 16 random shifts from a fixed seed) at Chebyshev nodes of
+/// the threshold (in asinh c) with common points, and interpolated between
+/// them. Points are doubled until the 99.9% half-width is below 1e-6 or 1e7
+/// node-by-comparison products are spent (about 1e-4 for 10 to 50 comparisons
+/// with 2 covariates; 3.5 s for 50, against minutes for the general QMC in 50
+/// dimensions). error_bound: the product form's error plus that half-width
+/// (largest over the nodes). Method "low-rank conditional integral
+/// (randomized QMC, product-form control)". With r = 1 the product form alone
+/// (exact). groupfit_pairs uses it from 8 comparisons on.
+struct dunnett_family_result {
+    std::vector<dunnett_result> adjusted_p;
+    dunnett_result quantile;
+};
+dunnett_family_result dunnett_lowrank(const Eigen::VectorXd& t, const lowrank_covariance& cov,
+                                      double df, dunnett_sides sides, double level);
+
 }  // namespace groupfit::dist

@@ -235,10 +235,10 @@ table pairs_report(const fit& f) {
             if (side == side_kind::greater) hi = std::numeric_limits<double>::infinity();
             if (side == side_kind::less) lo = -std::numeric_limits<double>::infinity();
         }
-        t.rows.push_back({text(f.level_label(pairs[r].first)), text(f.level_label(pairs[r].second)),
-                          num(it.est), num(it.se), num(it.t), df > 0 ? num(df) : value{},
-                          num(raw[r]), num(adj[r]), num(lo), num(hi), text(method),
-                          text(interval), it.note.empty() ? value{} : text(it.note)});
+        t.rows.push_back(make_row(text(f.level_label(pairs[r].first)), text(f.level_label(pairs[r].second)),
+                                  num(it.est), num(it.se), num(it.t), df > 0 ? num(df) : value{},
+                                  num(raw[r]), num(adj[r]), num(lo), num(hi), text(method),
+                                  text(interval), it.note.empty() ? value{} : text(it.note)));
     }
     return t;
 }
@@ -300,14 +300,14 @@ table contrast_report(const fit& f, std::string_view weights) {
                 a += (j ? ", " : "") + f.covariate_name(j) + "=" + shortest_real(at[j]);
             note += std::string(note.empty() ? "" : "; ") + "at " + a;
         }
-        t.rows.push_back({text(written[r]),
-                          text(is_contrast[r] ? "contrast" : "combination of means (weights do "
-                                                              "not sum to zero)"),
-                          num(it.est), num(it.se), num(it.t), df > 0 ? num(df) : value{}, value{},
-                          value{}, it.ok() ? num(dist::t_two_sided_p(it.t, df)) : value{},
-                          it.ok() ? num(it.est - q * it.se) : value{},
-                          it.ok() ? num(it.est + q * it.se) : value{},
-                          note.empty() ? value{} : text(note)});
+        t.rows.push_back(make_row(text(written[r]),
+                                  text(is_contrast[r] ? "contrast" : "combination of means (weights do "
+                                                                      "not sum to zero)"),
+                                  num(it.est), num(it.se), num(it.t), df > 0 ? num(df) : value{}, value{},
+                                  value{}, it.ok() ? num(dist::t_two_sided_p(it.t, df)) : value{},
+                                  it.ok() ? num(it.est - q * it.se) : value{},
+                                  it.ok() ? num(it.est + q * it.se) : value{},
+                                  note.empty() ? value{} : text(note)));
     }
     // Joint F test that every contrast (or combination) is zero.
     const std::size_t n = items.size();
@@ -343,9 +343,9 @@ table contrast_report(const fit& f, std::string_view weights) {
     } else {
         note = text("no test: a contrast has no standard error");
     }
-    t.rows.push_back({text("joint: all " + std::to_string(n) + (n == 1 ? " row is zero" : " rows are zero")), text("joint F test"),
-                      value{}, value{}, value{}, rk, df > 0 ? num(df) : value{}, fs, p, value{},
-                      value{}, note});
+    t.rows.push_back(make_row(text("joint: all " + std::to_string(n) + (n == 1 ? " row is zero" : " rows are zero")), text("joint F test"),
+                              value{}, value{}, value{}, std::move(rk), df > 0 ? num(df) : value{},
+                              std::move(fs), std::move(p), value{}, value{}, std::move(note)));
     return t;
 }
 

@@ -24,6 +24,8 @@
 //     fault-free reference also fails, the reference's own error); every row it
 //     returned before failing, and every statement that succeeds, equals the
 //     fault-free reference bit for bit;
+//   * a statement ends as if nothing had failed only when every failure it
+//     met was of an optional allocation (see "Optional allocations" below);
 //   * afterwards, with failures off, the same connection answers SELECT 1 and
 //     runs the whole scenario again with the reference's results;
 //   * sqlite3_close succeeds, and the live blocks and bytes of both allocators
@@ -35,8 +37,9 @@
 //   GROUPFIT_OOM_REPRO=coef,transient,210 test_oom --gtest_filter='*coef_transient'
 // Not covered: Eigen's matrices allocate with std::malloc, not operator new, so
 // those allocations are neither failed nor counted (LeakSanitizer still sees
-// them); and the Dunnett scenario, whose distribution makes thousands of
-// allocations in one loop, is sampled past its first points (see sweep_step).
+// them); the Dunnett scenario, whose distribution makes thousands of
+// allocations in one loop, is sampled past its first points; and in a
+// sanitizer build only every third point is failed (see sampling_for).
 #include <gtest/gtest.h>
 #include <sqlite3.h>
 
@@ -692,14 +695,70 @@ std::string attempt(const scenario& s, const std::vector<outcome>& ref, long at,
     return problems;
 }
 
-// Every allocation point is failed, except in a scenario whose fault-free run
-// makes more than `max_points` allocations (Dunnett's distribution makes
-// thousands of small ones in one integration loop): there every point up to
-// `dense` is failed, then every step-th point (about `sparse` more); the test
-// prints which. The final run, past the last allocation, must meet no failure.
-constexpr long max_points = 2500, dense = 500, sparse = 250;
-long sweep_step(long full_run) { return full_run <= max_points ? 1 : std::max(1L, (full_run - dense) / sparse); }
-long next_point(long at, long step) { return at < dense ? at + 1 : at + step; }
+// Which allocation points a sweep fails. In the release build every one,
+// except in a scenario whose fault-free run makes more than `max_points`
+// allocations (Dunnett's distribution makes thousands of small ones in one
+// integration loop): there every point up to `dense` is failed, then every
+// step-th point (about `sparse` more). In a sanitizer build a point costs about
+// ten times as much, and the full sweep takes several minutes on a two-core
+// machine, so there only every third point is failed (deterministically:
+// transient mode fails points 1, 4, 7, ..., persistent mode 2, 5, 8, ..., so
+// that the two modes together cover two points in three), and Dunnett's
+// sparse part has about `sparse_sanitized` points; setting
+// GROUPFIT_OOM_FULL=1 fails every point in any build (and Dunnett's as in the
+// release build). The test prints what it did. The final run, past the last
+// allocation, must meet no failure.
+constexpr long max_points = 2500, dense = 500, sparse = 250, sparse_sanitized = 100;
+
+#if defined(__SANITIZE_ADDRESS__)
+constexpr long sanitizer_stride = 3;
+#elif defined(__has_feature)
+#if __has_feature(address_sanitizer)
+constexpr long sanitizer_stride = 3;
+#else
+constexpr long sanitizer_stride = 1;
+#endif
+#else
+constexpr long sanitizer_stride = 1;
+#endif
+
+struct sampling {
+    long first = 1;   // the first point failed
+    long stride = 1;  // then every stride-th point up to `dense` ...
+    long step = 1;    // ... and every step-th point after it
+};
+
+sampling sampling_for(long full_run, fault::mode m) {
+    const char* full = std::getenv("GROUPFIT_OOM_FULL");
+    const long stride = full && std::string(full) == "1" ? 1 : sanitizer_stride;
+    sampling s;
+    s.stride = stride;
+    s.first = 1 + (m == fault::mode::persistent ? 1 : 0) % stride;
+    const long n_sparse = stride > 1 ? sparse_sanitized : sparse;
+    s.step = full_run <= max_points ? stride : std::max(stride, (full_run - dense) / n_sparse);
+    return s;
+}
+long next_point(long at, const sampling& s) { return at < dense ? at + s.stride : at + s.step; }
+
+// "3rd", "24th"; "one" for 1.
+std::string nth(long k) {
+    if (k == 1) return "one";
+    const long t = k % 100;
+    const char* suffix = t >= 11 && t <= 13 ? "th"
+                         : k % 10 == 1          ? "st"
+                         : k % 10 == 2          ? "nd"
+                         : k % 10 == 3          ? "rd"
+                                                : "th";
+    return std::to_string(k) + suffix;
+}
+
+std::string describe(const sampling& s) {
+    if (s.stride == 1 && s.step == 1) return "every one failed";
+    std::string d = "sampled: every " + nth(s.stride) + " from " + std::to_string(s.first);
+    if (s.step != s.stride) d += " up to " + std::to_string(dense) + ", then every " + nth(s.step);
+    if (s.stride > 1) d += " (sanitizer build; GROUPFIT_OOM_FULL=1 fails every point)";
+    return d;
+}
 
 // State a sweep shares with the process that watches it (MAP_SHARED), so
 // that a crash still tells at which allocation it happened and what had been
@@ -751,12 +810,12 @@ void sweep(const scenario& s, fault::mode m, long start, shared_state& st, std::
         if (!p.empty()) return report(std::string(s.name) + ", no allocation failing:" + p);
         st.full_run = c.total_allocs;
     }
-    const long step = sweep_step(st.full_run);
+    const sampling plan = sampling_for(st.full_run, m);
     constexpr long limit = 1000000;
     // Each distinct problem is reported when first met, with how often it
     // recurred at the end (unless the sweep crashes first).
     std::map<std::string, std::pair<long, long>> seen;  // problem -> first point, points
-    for (long at = 1; at < limit; at = next_point(at, step)) {
+    for (long at = plan.first; at < limit; at = next_point(at, plan)) {
         if (at < start) continue;
         st.at = at;
         long injected = 0;
@@ -916,16 +975,12 @@ TEST_P(Oom, EveryAllocationPointFailsCleanly) {
     std::vector<std::string> failures;
     const sweep_counts c = sweep_isolated(*it, m, failures);
     for (const auto& f : failures) ADD_FAILURE() << f;
-    const long step = sweep_step(c.total_allocs);
     std::printf("[ oom      ] %-10s %-10s %5ld allocation points survived (%ld in C++ operator new, %ld while "
                 "loading the module, %ld statements failed with SQLITE_NOMEM or their own error, %ld failures of "
-                "optional allocations absorbed); %ld allocations in a fault-free run%s\n",
+                "optional allocations absorbed); %ld allocations in a fault-free run, %s\n",
                 name.c_str(), m == fault::mode::persistent ? "persistent" : "transient", c.points, c.cxx_points,
                 c.load_failed, c.nomem, c.absorbed, c.total_allocs,
-                step == 1 ? ", every one failed"
-                          : (", sampled: every one up to " + std::to_string(dense) + ", then every " +
-                             std::to_string(step) + "th")
-                                .c_str());
+                describe(sampling_for(c.total_allocs, m)).c_str());
     // The sweep must really have failed allocations, SQLite's and the module's.
     EXPECT_GT(c.points, 10) << "no allocation point was exercised";
     EXPECT_GT(c.cxx_points, 0) << "no C++ allocation of the module was failed";
@@ -1122,10 +1177,16 @@ TEST(OomHarness, ComparisonNoticesADifferentResult) {
 class Report : public ::testing::Environment {
 public:
     void TearDown() override {
-        for (int m = 0; m < 2; ++m)
-            std::printf("[ oom      ] %s: %ld scenarios x allocation points = %ld survived (%ld in C++ operator new)\n",
+        for (int m = 0; m < 2; ++m) {
+            const sampling plan = sampling_for(0, m ? fault::mode::persistent : fault::mode::transient);
+            std::printf("[ oom      ] %s: %ld scenarios x allocation points = %ld survived (%ld in C++ operator new)%s\n",
                         m ? "persistent" : "transient", grand_totals[m].scenarios, grand_totals[m].points,
-                        grand_totals[m].cxx_points);
+                        grand_totals[m].cxx_points,
+                        plan.stride > 1 ? (", every " + nth(plan.stride) + " point from " +
+                                           std::to_string(plan.first) + " (sanitizer build)")
+                                              .c_str()
+                                        : "");
+        }
     }
 };
 const auto* report_env = ::testing::AddGlobalTestEnvironment(new Report);

@@ -304,10 +304,11 @@ void pairs_rows(const mean_family& f, const options& o, const std::string& withi
             if (side == side_kind::greater) hi = std::numeric_limits<double>::infinity();
             if (side == side_kind::less) lo = -std::numeric_limits<double>::infinity();
         }
-        t.rows.push_back({text(f.label(pairs[r].first)), text(f.label(pairs[r].second)),
-                          within.empty() ? value{} : text(within), num(it.est), num(it.se), num(it.t), df > 0 ? num(df) : value{},
-                          num(raw[r]), num(adj[r]), num(lo), num(hi), text(method),
-                          text(interval), it.note.empty() ? value{} : text(it.note)});
+        t.rows.push_back(make_row(text(f.label(pairs[r].first)), text(f.label(pairs[r].second)),
+                                  within.empty() ? value{} : text(within), num(it.est), num(it.se),
+                                  num(it.t), df > 0 ? num(df) : value{}, num(raw[r]), num(adj[r]),
+                                  num(lo), num(hi), text(method), text(interval),
+                                  it.note.empty() ? value{} : text(it.note)));
     }
 }
 
@@ -363,14 +364,14 @@ table contrast_report(const mean_family& f, const options& o, std::string_view w
         std::string note = it.note;
         if (!is_contrast[r] && !at.empty())
             note += std::string(note.empty() ? "" : "; ") + "at " + at;
-        t.rows.push_back({text(written[r]),
-                          text(is_contrast[r] ? "contrast" : "combination of means (weights do "
-                                                              "not sum to zero)"),
-                          num(it.est), num(it.se), num(it.t), df > 0 ? num(df) : value{}, value{},
-                          value{}, it.ok() ? num(dist::t_two_sided_p(it.t, df)) : value{},
-                          it.ok() ? num(it.est - q * it.se) : value{},
-                          it.ok() ? num(it.est + q * it.se) : value{},
-                          note.empty() ? value{} : text(note)});
+        t.rows.push_back(make_row(text(written[r]),
+                                  text(is_contrast[r] ? "contrast" : "combination of means (weights do "
+                                                                      "not sum to zero)"),
+                                  num(it.est), num(it.se), num(it.t), df > 0 ? num(df) : value{}, value{},
+                                  value{}, it.ok() ? num(dist::t_two_sided_p(it.t, df)) : value{},
+                                  it.ok() ? num(it.est - q * it.se) : value{},
+                                  it.ok() ? num(it.est + q * it.se) : value{},
+                                  note.empty() ? value{} : text(note)));
     }
     // Joint F test that every contrast (or combination) is zero.
     const std::size_t n = items.size();
@@ -406,9 +407,9 @@ table contrast_report(const mean_family& f, const options& o, std::string_view w
     } else {
         note = text("no test: a contrast has no standard error");
     }
-    t.rows.push_back({text("joint: all " + std::to_string(n) + (n == 1 ? " row is zero" : " rows are zero")), text("joint F test"),
-                      value{}, value{}, value{}, rk, df > 0 ? num(df) : value{}, fs, p, value{},
-                      value{}, note});
+    t.rows.push_back(make_row(text("joint: all " + std::to_string(n) + (n == 1 ? " row is zero" : " rows are zero")), text("joint F test"),
+                              value{}, value{}, value{}, std::move(rk), df > 0 ? num(df) : value{},
+                              std::move(fs), std::move(p), value{}, value{}, std::move(note)));
     return t;
 }
 

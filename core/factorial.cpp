@@ -773,16 +773,16 @@ std::vector<value> test_row(const std::string& name, const char* method, int ss,
         note = "tests " + shortest_real(df) + " of " + shortest_real(nominal) +
                " degrees of freedom: the rest are not estimable (empty cells or aliasing)";
     if (df <= 0) {
-        return {text(name), text(method), ss ? integer(ss) : value{}, num(0.0), num(dfr), num(0.0),
+        return make_row(text(name), text(method), ss ? integer(ss) : value{}, num(0.0), num(dfr), num(0.0),
                 value{}, value{}, value{}, value{}, value{}, value{},
                 text(nominal > 0 ? "nothing testable: every degree of freedom is lost to empty cells or aliasing"
-                                 : "the factor has one level: nothing to test")};
+                                 : "the factor has one level: nothing to test"));
     }
     const double ms = ssv / df, fs = ms / mse;
-    return {text(name), text(method), ss ? integer(ss) : value{}, num(df), num(dfr), num(ssv),
-            num(ms), num(fs), num(dist::f_upper_p(fs, df, dfr)), num(ssv / sst),
-            num(ssv / (ssv + sse)), num((ssv - df * mse) / (sst + mse)),
-            note.empty() ? value{} : text(note)};
+    return make_row(text(name), text(method), ss ? integer(ss) : value{}, num(df), num(dfr), num(ssv),
+                    num(ms), num(fs), num(dist::f_upper_p(fs, df, dfr)), num(ssv / sst),
+                    num(ssv / (ssv + sse)), num((ssv - df * mse) / (sst + mse)),
+                    note.empty() ? value{} : text(note));
 }
 
 /// SS and df of the homogeneity-of-slopes test: the full model against the
@@ -917,13 +917,13 @@ table cross_levels_report(const summary& s, const options& o) {
         if (!est.estimable)
             note += (note.empty() ? "" : "; ") + std::string("adjusted mean not estimable: ") + why;
         const bool has_se = est.estimable && !std::isnan(est.std_error);
-        t.rows.push_back({text(term), text(label), integer(pos), integer(rows), num(w),
+        t.rows.push_back(make_row(text(term), text(label), integer(pos), integer(rows), num(w),
                           rows ? num(mean) : value{}, num(sd),
                           est.estimable ? num(est.value) : value{},
                           has_se ? num(est.std_error) : value{},
                           has_se ? num(est.value - q * est.std_error) : value{},
-                          has_se ? num(est.value + q * est.std_error) : value{}, weighting,
-                          at.empty() ? value{} : text(at), note.empty() ? value{} : text(note)});
+                          has_se ? num(est.value + q * est.std_error) : value{}, std::move(weighting),
+                          at.empty() ? value{} : text(at), note.empty() ? value{} : text(note)));
     };
     const std::string why = not_estimable_reason(e);
     // Cells (every combination, empty ones included), then each factor's
@@ -962,14 +962,14 @@ table cross_coef_report(const summary& s, const options& o) {
         const estimate est = e.evaluate(f);
         const bool has_se = est.estimable && !std::isnan(est.std_error) && est.std_error > 0;
         const double tv = has_se ? est.value / est.std_error : nan;
-        t.rows.push_back({text(term), text(label), text(words),
+        t.rows.push_back(make_row(text(term), text(label), text(words),
                           est.estimable ? num(est.value) : value{},
                           est.estimable ? num(est.std_error) : value{}, num(tv),
                           df > 0 ? num(df) : value{},
                           has_se ? num(dist::t_two_sided_p(tv, df)) : value{},
                           has_se ? num(est.value - q * est.std_error) : value{},
                           has_se ? num(est.value + q * est.std_error) : value{},
-                          est.estimable ? value{} : text("not estimable: " + why)});
+                          est.estimable ? value{} : text("not estimable: " + why)));
     };
     // Coefficient rows: for every term of the model (and the intercept), every
     // combination of non-intercept coding rows of its factors. Its weights
@@ -1086,7 +1086,7 @@ table cross_summary_report(const summary& s, const options& o) {
     if (e.full.rank < int(e.ncols))
         aliased = std::to_string(e.ncols - e.full.rank) + " of " + std::to_string(e.ncols) +
                   " design columns aliased" + (empty.empty() ? "" : " (empty cells)");
-    t.rows.push_back({integer(s.rows_used()), integer(s.dropped_total()),
+    t.rows.push_back(make_row(integer(s.rows_used()), integer(s.dropped_total()),
                       integer(s.dropped(drop_reason::null_response)),
                       integer(s.dropped(drop_reason::null_group)),
                       integer(s.dropped(drop_reason::null_covariate)),
@@ -1101,7 +1101,7 @@ table cross_summary_report(const summary& s, const options& o) {
                       integer(e.plain ? 1 : e.K), integer(std::int64_t(empty.size())),
                       empty.empty() ? value{} : text(list_of(empty)),
                       text(std::string("terms=") + terms_name(o.terms) + "; slopes=" +
-                           slopes_name(o.slopes))});
+                           slopes_name(o.slopes))));
     return t;
 }
 

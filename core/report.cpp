@@ -86,15 +86,15 @@ table coef_report(const fit& f) {
     const double df = f.df_resid(), conf = f.opts().conf;
     for (std::size_t i = 0; i < cd.size(); ++i) {
         const estimate e = f.evaluate(f.level_combination(cd.row(i), zero));
-        std::vector<value> row{text(i == 0 ? "intercept" : f.group_name()), text(cd.label(i)),
-                               text(cd.compares(i))};
+        std::vector<value> row = make_row(text(i == 0 ? "intercept" : f.group_name()), text(cd.label(i)),
+                                          text(cd.compares(i)));
         inference(row, e, df, conf);
         row.push_back(note_value(note_for(e)));
         t.rows.push_back(std::move(row));
     }
     for (int j = 0; j < f.covariates(); ++j) {
-        std::vector<value> row{text(f.covariate_name(j)), text("slope"),
-                               text("per unit of " + f.covariate_name(j))};
+        std::vector<value> row = make_row(text(f.covariate_name(j)), text("slope"),
+                                          text("per unit of " + f.covariate_name(j)));
         if (f.aliased(j)) {
             for (int c = 0; c < 7; ++c) row.push_back(value{});
             row.push_back(text(f.alias_reason(j)));
@@ -115,12 +115,13 @@ table levels_report(const fit& f) {
     const double q = dist::t_quantile(1.0 - (1.0 - f.opts().conf) / 2.0, df);
     for (std::size_t i = 0; i < f.levels(); ++i) {
         const estimate e = f.level_mean_at(i, at);
-        t.rows.push_back({text(f.group_name()), text(f.level_label(i)), integer(std::int64_t(i + 1)),
-                          integer(f.level_rows(i)), num(f.level_weight(i)), num(f.level_mean(i)),
-                          num(f.level_sd(i)), num(e.value), num(e.std_error),
-                          num(e.value - q * e.std_error), num(e.value + q * e.std_error), value{},
-                          f.covariates() ? text(covariates_at(f, at)) : value{},
-                          note_value(note_for(e))});
+        t.rows.push_back(make_row(text(f.group_name()), text(f.level_label(i)),
+                                  integer(std::int64_t(i + 1)), integer(f.level_rows(i)),
+                                  num(f.level_weight(i)), num(f.level_mean(i)), num(f.level_sd(i)),
+                                  num(e.value), num(e.std_error), num(e.value - q * e.std_error),
+                                  num(e.value + q * e.std_error), value{},
+                                  f.covariates() ? text(covariates_at(f, at)) : value{},
+                                  note_value(note_for(e))));
     }
     return t;
 }
@@ -138,9 +139,9 @@ table deviations_report(const fit& f) {
             Eigen::VectorXd k = -(ref == 0 ? uniform : weights);
             k[i] += 1.0;
             const estimate e = f.evaluate(f.level_combination(k, zero));
-            std::vector<value> row{text(f.level_label(i)),
-                                   text(ref == 0 ? "unweighted mean of level means"
-                                                 : "weighted mean of level means")};
+            std::vector<value> row = make_row(text(f.level_label(i)),
+                                              text(ref == 0 ? "unweighted mean of level means"
+                                                            : "weighted mean of level means"));
             inference(row, e, f.df_resid(), f.opts().conf);
             row.push_back(note_value(note_for(e)));
             t.rows.push_back(std::move(row));
@@ -157,9 +158,9 @@ table tests_report(const fit& f) {
     const int ss = f.opts().ss;
     auto term_row = [&](const std::string& term, double df, double ssv) {
         const double ms = ssv / df, fs = ms / mse;
-        t.rows.push_back({text(term), text("f_test"), integer(ss), num(df), num(dfr), num(ssv),
-                          num(ms), num(fs), num(dist::f_upper_p(fs, df, dfr)), num(ssv / sst),
-                          num(ssv / (ssv + sse)), num((ssv - df * mse) / (sst + mse))});
+        t.rows.push_back(make_row(text(term), text("f_test"), integer(ss), num(df), num(dfr), num(ssv),
+                                  num(ms), num(fs), num(dist::f_upper_p(fs, df, dfr)), num(ssv / sst),
+                                  num(ssv / (ssv + sse)), num((ssv - df * mse) / (sst + mse))));
     };
     const double L = double(f.levels());
     if (f.levels() > 1)
@@ -167,9 +168,9 @@ table tests_report(const fit& f) {
                  ss == 1 ? f.ss_group_unadjusted() : f.ss_group_adjusted());
     for (int j = 0; j < f.covariates(); ++j) {
         if (f.aliased(j)) {
-            t.rows.push_back({text(f.covariate_name(j)), text("f_test"), integer(ss), num(0.0),
-                              num(dfr), value{}, value{}, value{}, value{}, value{}, value{},
-                              value{}});
+            t.rows.push_back(make_row(text(f.covariate_name(j)), text("f_test"), integer(ss), num(0.0),
+                                      num(dfr), value{}, value{}, value{}, value{}, value{}, value{},
+                                      value{}));
             continue;
         }
         term_row(f.covariate_name(j), 1.0,
@@ -178,14 +179,14 @@ table tests_report(const fit& f) {
     const double dfm = double(f.rank() - 1);
     if (dfm > 0) {
         const double ssm = f.ss_model(), ms = ssm / dfm, fs = ms / mse;
-        t.rows.push_back({text("model"), text("f_test"), value{}, num(dfm), num(dfr), num(ssm),
-                          num(ms), num(fs), num(dist::f_upper_p(fs, dfm, dfr)), num(ssm / sst),
-                          num(ssm / sst), num((ssm - dfm * mse) / (sst + mse))});
+        t.rows.push_back(make_row(text("model"), text("f_test"), value{}, num(dfm), num(dfr), num(ssm),
+                                  num(ms), num(fs), num(dist::f_upper_p(fs, dfm, dfr)), num(ssm / sst),
+                                  num(ssm / sst), num((ssm - dfm * mse) / (sst + mse))));
     }
-    t.rows.push_back({text("residual"), value{}, value{}, num(dfr), value{}, num(sse), num(mse),
-                      value{}, value{}, value{}, value{}, value{}});
-    t.rows.push_back({text("total"), value{}, value{}, num(double(f.rows() - 1)), value{}, num(sst),
-                      value{}, value{}, value{}, value{}, value{}, value{}});
+    t.rows.push_back(make_row(text("residual"), value{}, value{}, num(dfr), value{}, num(sse), num(mse),
+                              value{}, value{}, value{}, value{}, value{}));
+    t.rows.push_back(make_row(text("total"), value{}, value{}, num(double(f.rows() - 1)), value{}, num(sst),
+                              value{}, value{}, value{}, value{}, value{}, value{}));
 
     // Welch's heteroscedastic F for the grouping (no covariates, no weights).
     if (f.covariates() == 0 && f.levels() > 1 && !f.weighted()) {
@@ -216,9 +217,10 @@ table tests_report(const fit& f) {
             const double d2 = (k * k - 1) / (3.0 * tmp);
             fw = num(fval), df2 = num(d2), p = num(dist::f_upper_p(fval, k - 1, d2));
         }
-        t.rows.push_back({text(f.group_name()), text("welch_f_test"), value{},
-                          num(double(n - 1)), df2, value{}, value{}, fw, p, value{}, value{},
-                          value{}});
+        t.rows.push_back(make_row(text(f.group_name()), text("welch_f_test"), value{},
+                                  num(double(n - 1)), std::move(df2), value{}, value{}, std::move(fw),
+                                  std::move(p), value{}, value{},
+                                  value{}));
     }
     for (auto& row : t.rows) row.resize(t.columns.size());
     // The grouping-by-covariate interaction: do the slopes differ by level?
@@ -248,21 +250,21 @@ table summary_report(const fit& f, const summary& s) {
     for (std::size_t c = 0; c < s.cells(); ++c) log_w += s.cell_log_weight(c);
     const double ll = 0.5 * log_w - 0.5 * n * (std::log(2 * M_PI) + 1.0 - std::log(n) + std::log(sse));
     const double kpar = double(f.rank() + 1);
-    t.rows.push_back({integer(s.rows_used()), integer(s.dropped_total()),
-                      integer(s.dropped(drop_reason::null_response)),
-                      integer(s.dropped(drop_reason::null_group)),
-                      integer(s.dropped(drop_reason::null_covariate)),
-                      integer(s.dropped(drop_reason::null_weight)),
-                      integer(s.dropped(drop_reason::zero_weight)), num(f.weight_sum()),
-                      integer(std::int64_t(f.levels())), integer(f.covariates()),
-                      integer(f.parameters()), integer(f.rank()),
-                      aliased.empty() ? value{} : text(aliased), num(dfm), num(dfr), num(r2),
-                      num(adj), num(std::sqrt(f.sigma2())),
-                      dfm > 0 ? num(fs) : value{},
-                      dfm > 0 ? num(dist::f_upper_p(fs, dfm, dfr)) : value{},
-                      num(ll), num(-2 * ll + 2 * kpar), num(-2 * ll + std::log(n) * kpar),
-                      num(f.condition_number()), integer(1), integer(0), value{},
-                      text("one factor; slopes=common")});
+    t.rows.push_back(make_row(integer(s.rows_used()), integer(s.dropped_total()),
+                              integer(s.dropped(drop_reason::null_response)),
+                              integer(s.dropped(drop_reason::null_group)),
+                              integer(s.dropped(drop_reason::null_covariate)),
+                              integer(s.dropped(drop_reason::null_weight)),
+                              integer(s.dropped(drop_reason::zero_weight)), num(f.weight_sum()),
+                              integer(std::int64_t(f.levels())), integer(f.covariates()),
+                              integer(f.parameters()), integer(f.rank()),
+                              aliased.empty() ? value{} : text(aliased), num(dfm), num(dfr), num(r2),
+                              num(adj), num(std::sqrt(f.sigma2())),
+                              dfm > 0 ? num(fs) : value{},
+                              dfm > 0 ? num(dist::f_upper_p(fs, dfm, dfr)) : value{},
+                              num(ll), num(-2 * ll + 2 * kpar), num(-2 * ll + std::log(n) * kpar),
+                              num(f.condition_number()), integer(1), integer(0), value{},
+                              text("one factor; slopes=common")));
     return t;
 }
 

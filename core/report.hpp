@@ -7,6 +7,8 @@
 
 #include <cstdint>
 #include <string>
+#include <type_traits>
+#include <utility>
 #include <variant>
 #include <vector>
 
@@ -20,6 +22,20 @@ struct table {
     std::vector<std::string> columns;
     std::vector<std::vector<value>> rows;
 };
+
+/// A row made by moving the values in. Rows are never built from a braced
+/// list: that copies every value, and with libstdc++ 12 a std::variant copy
+/// whose std::string copy throws std::bad_alloc then destroys an alternative it
+/// never made (undefined behaviour, found by the out-of-memory test under
+/// UBSan). Moving a value never throws; only rvalues are accepted.
+template <class... V>
+std::vector<value> make_row(V&&... v) {
+    static_assert((!std::is_lvalue_reference_v<V> && ...), "make_row moves its values: pass rvalues");
+    std::vector<value> row;
+    row.reserve(sizeof...(V));
+    (row.emplace_back(std::move(v)), ...);
+    return row;
+}
 
 /// Column lists, fixed per report (the SQL schema is built from them).
 const std::vector<std::string>& coef_columns();

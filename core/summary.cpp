@@ -82,13 +82,24 @@ std::size_t summary::add_cell(const level& lv, std::string key, const limits& li
         throw error("too many levels in the grouping argument: the limit is " +
                     std::to_string(lim.max_levels) +
                     " (raise it with groupfit_limit('levels', N))");
+    // All or nothing: if an allocation fails, the cell is taken out of every
+    // member again, so that a summary that threw is still consistent.
     const std::size_t c = levels_.size();
-    levels_.push_back(lv);
-    n_.push_back(0);
-    log_w_.push_back(0.0);
-    origin_.resize(origin_.size() + (p_ + 1), 0.0);
-    factor_.resize(factor_.size() + stride(), ddouble());
-    index_.emplace(std::move(key), c);
+    try {
+        levels_.push_back(lv);
+        n_.push_back(0);
+        log_w_.push_back(0.0);
+        origin_.resize(c * (p_ + 1) + (p_ + 1), 0.0);
+        factor_.resize(c * stride() + stride(), ddouble());
+        index_.emplace(std::move(key), c);
+    } catch (...) {
+        if (levels_.size() > c) levels_.pop_back();
+        if (n_.size() > c) n_.pop_back();
+        if (log_w_.size() > c) log_w_.pop_back();
+        origin_.resize(c * (p_ + 1));
+        factor_.resize(c * stride());
+        throw;
+    }
     return c;
 }
 
@@ -111,18 +122,20 @@ std::size_t summary::cell_for(level_kind kind, const void* data, std::size_t len
     if (!levels_.empty() && last_key_.size() == len + 1 && last_key_[0] == static_cast<char>(kind) &&
         std::memcmp(last_key_.data() + 1, bytes, len) == 0)
         return last_cell_;
-    last_key_.assign(1, static_cast<char>(kind));
-    last_key_.append(bytes, len);
-    auto it = index_.find(std::string_view(last_key_));
-    if (it != index_.end()) return last_cell_ = it->second;
-    level lv;
-    switch (kind) {
-    case level_kind::integer: lv = level::from_integer(*static_cast<const std::int64_t*>(data)); break;
-    case level_kind::real: lv = level::from_real(*static_cast<const double*>(data)); break;
-    case level_kind::text: lv = level::from_text(std::string_view(bytes, len)); break;
-    case level_kind::blob: lv = level::from_blob(std::string_view(bytes, len)); break;
-    }
+    // last_key_ names last_cell_ only once both are set: on any throw below it
+    // is cleared, so that the shortcut above cannot match a cell never made.
     try {
+        last_key_.assign(1, static_cast<char>(kind));
+        last_key_.append(bytes, len);
+        auto it = index_.find(std::string_view(last_key_));
+        if (it != index_.end()) return last_cell_ = it->second;
+        level lv;
+        switch (kind) {
+        case level_kind::integer: lv = level::from_integer(*static_cast<const std::int64_t*>(data)); break;
+        case level_kind::real: lv = level::from_real(*static_cast<const double*>(data)); break;
+        case level_kind::text: lv = level::from_text(std::string_view(bytes, len)); break;
+        case level_kind::blob: lv = level::from_blob(std::string_view(bytes, len)); break;
+        }
         last_cell_ = add_cell(lv, last_key_, lim);
     } catch (...) {
         last_key_.clear();

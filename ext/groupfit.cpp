@@ -69,7 +69,7 @@ struct connection_config {
     int refs = 0;
 };
 
-void release_config(void* p) {
+void release_config(void* p) noexcept {
     auto* c = static_cast<connection_config*>(p);
     if (--c->refs == 0) delete c;
 }
@@ -78,20 +78,62 @@ connection_config* config_of(sqlite3_context* ctx) {
     return static_cast<connection_config*>(sqlite3_user_data(ctx));
 }
 
+/* Out-of-memory policy (DESIGN.md section 5). No C++ exception leaves a
+** callback: every SQLite callback below is noexcept (an exception that still
+** escaped would terminate, not unwind through SQLite's C frames) and runs its
+** work inside a handler. std::bad_alloc becomes SQLITE_NOMEM. Error messages
+** are formatted with sqlite3_mprintf, not std::string, so reporting an error
+** never throws; when even that allocation fails the error becomes SQLITE_NOMEM.
+** Every SQLite call that can run out of memory is checked: sqlite3_value_text,
+** sqlite3_value_blob (through text_of and blob_of), sqlite3_value_dup,
+** sqlite3_mprintf. The sqlite3_result_text64/blob64 calls need no check:
+** they set SQLITE_NOMEM on the context themselves when they cannot copy. */
+
+/* Sets an error result "<fn>: <prefix><what>" on ctx, or SQLITE_NOMEM when the
+** message cannot be allocated. */
+void result_error(sqlite3_context* ctx, const char* fn, const char* prefix, const char* what) noexcept {
+    char* msg = sqlite3_mprintf("%s: %s%s", fn, prefix, what);
+    if (!msg) return sqlite3_result_error_nomem(ctx);
+    sqlite3_result_error(ctx, msg, -1);
+    sqlite3_free(msg);
+}
+
 /* Runs `body`, mapping exceptions to an SQL error on ctx that names `fn`. */
 template <class F>
-void guarded(sqlite3_context* ctx, const char* fn, F&& body) {
+void guarded(sqlite3_context* ctx, const char* fn, F&& body) noexcept {
     try {
         body();
     } catch (const std::bad_alloc&) {
         sqlite3_result_error_nomem(ctx);
     } catch (const groupfit::error& e) {
-        std::string msg = std::string(fn) + ": " + e.what();
-        sqlite3_result_error(ctx, msg.c_str(), -1);
+        result_error(ctx, fn, "", e.what());
     } catch (const std::exception& e) {
-        std::string msg = std::string(fn) + ": internal error: " + e.what();
-        sqlite3_result_error(ctx, msg.c_str(), -1);
+        result_error(ctx, fn, "internal error: ", e.what());
+    } catch (...) {
+        result_error(ctx, fn, "internal error: ", "unknown exception");
     }
+}
+
+/* The text of a value that is not NULL. sqlite3_value_text returns NULL for
+** such a value only when converting or terminating it ran out of memory. */
+std::string_view text_of(sqlite3_value* v) {
+    const auto* t = reinterpret_cast<const char*>(sqlite3_value_text(v));
+    if (!t) throw std::bad_alloc();
+    return {t, static_cast<std::size_t>(sqlite3_value_bytes(v))};
+}
+
+/* The bytes of a value that is not NULL. sqlite3_value_blob returns NULL for an
+** empty value, and also when it runs out of memory (expanding a zeroblob or
+** converting a number): then the value still has bytes, or SQLite has set it
+** to NULL. */
+std::string_view blob_of(sqlite3_value* v) {
+    const void* b = sqlite3_value_blob(v);
+    const int n = sqlite3_value_bytes(v);
+    if (!b) {
+        if (n > 0 || sqlite3_value_type(v) == SQLITE_NULL) throw std::bad_alloc();
+        return {};
+    }
+    return {static_cast<const char*>(b), static_cast<std::size_t>(n)};
 }
 
 const char* type_name(int t) {
@@ -124,8 +166,7 @@ std::string arg_name(const char* role, int covariate, int position) {
                               (std::isnan(x) ? std::string("NaN") : x > 0 ? "Inf" : "-Inf"));
     }
     case SQLITE_TEXT: {
-        const char* s = reinterpret_cast<const char*>(sqlite3_value_text(v));
-        const std::string_view t(s ? s : "", s ? sqlite3_value_bytes(v) : 0);
+        const std::string_view t = text_of(v);
         if (groupfit::parse_real(t, out)) return true;
         // Quote at most 40 bytes, cut at a UTF-8 character boundary.
         std::size_t cut = std::min<std::size_t>(t.size(), 40);
@@ -152,13 +193,35 @@ inline bool numeric_arg(sqlite3_value* v, const char* role, int covariate, int p
 
 /* ---------------------------------------------------------------- aggregates */
 
+/* The aggregate context (zeroed by SQLite). After any exception in xStep the
+** summary may be half-updated (e.g. a level added but not its factor), so it is
+** marked failed: SQLite aborts the statement and still calls xFinal, which then
+** only frees it. */
 struct agg_state {
     summary* s;
+    bool failed;
 };
 
-void fit_step(sqlite3_context* ctx, int argc, sqlite3_value** argv, bool weighted) {
-    const char* fn = weighted ? "groupfit_weighted" : "groupfit";
+/* Runs one xStep body; an exception marks the aggregate failed. */
+template <class F>
+void guarded_step(sqlite3_context* ctx, const char* fn, F&& body) noexcept {
+    agg_state* st = nullptr;
     guarded(ctx, fn, [&] {
+        try {
+            st = static_cast<agg_state*>(sqlite3_aggregate_context(ctx, sizeof(agg_state)));
+            if (!st) throw std::bad_alloc();
+            if (st->failed) return;  // not reached: SQLite stops at the first error
+            body(*st);
+        } catch (...) {
+            if (st) st->failed = true;
+            throw;
+        }
+    });
+}
+
+void fit_step(sqlite3_context* ctx, int argc, sqlite3_value** argv, bool weighted) noexcept {
+    const char* fn = weighted ? "groupfit_weighted" : "groupfit";
+    guarded_step(ctx, fn, [&](agg_state& st) {
         const int lead = weighted ? 3 : 2;
         if (argc < lead && weighted)
             throw groupfit::error("needs at least (weight, response, grouping)");
@@ -168,10 +231,8 @@ void fit_step(sqlite3_context* ctx, int argc, sqlite3_value** argv, bool weighte
         if (p > lim.max_covariates)
             throw groupfit::error("too many covariates: " + std::to_string(p) + " given, the limit is " +
                                   std::to_string(lim.max_covariates));
-        auto* st = static_cast<agg_state*>(sqlite3_aggregate_context(ctx, sizeof(agg_state)));
-        if (!st) throw std::bad_alloc();
-        if (!st->s) st->s = new summary(p, weighted);
-        summary& s = *st->s;
+        if (!st.s) st.s = new summary(p, weighted);
+        summary& s = *st.s;
         if (s.covariates() != p)
             throw groupfit::error("the number of covariates changed between rows");
 
@@ -203,64 +264,63 @@ void fit_step(sqlite3_context* ctx, int argc, sqlite3_value** argv, bool weighte
             const double r = sqlite3_value_double(g);
             cell = s.cell_for(groupfit::level_kind::real, &r, sizeof r, lim);
         } else if (gtype == SQLITE_TEXT) {
-            const unsigned char* t = sqlite3_value_text(g);
-            if (!t) throw std::bad_alloc();
-            cell = s.cell_for(groupfit::level_kind::text, t, sqlite3_value_bytes(g), lim);
+            const std::string_view t = text_of(g);
+            cell = s.cell_for(groupfit::level_kind::text, t.data(), t.size(), lim);
         } else {
-            const void* b = sqlite3_value_blob(g);
-            cell = s.cell_for(groupfit::level_kind::blob, b ? b : "", sqlite3_value_bytes(g), lim);
+            const std::string_view b = blob_of(g);
+            cell = s.cell_for(groupfit::level_kind::blob, b.empty() ? "" : b.data(), b.size(), lim);
         }
         if (s.cells() != cells_before && cell > 0) groupfit::check_same_factors(s, cell);
         s.add_row(cell, vals, w);
     });
 }
 
-void groupfit_step(sqlite3_context* ctx, int argc, sqlite3_value** argv) {
+void groupfit_step(sqlite3_context* ctx, int argc, sqlite3_value** argv) noexcept {
     fit_step(ctx, argc, argv, false);
 }
-void groupfit_weighted_step(sqlite3_context* ctx, int argc, sqlite3_value** argv) {
+void groupfit_weighted_step(sqlite3_context* ctx, int argc, sqlite3_value** argv) noexcept {
     fit_step(ctx, argc, argv, true);
 }
 
-void merge_step(sqlite3_context* ctx, int, sqlite3_value** argv) {
-    guarded(ctx, "groupfit_merge", [&] {
+void merge_step(sqlite3_context* ctx, int, sqlite3_value** argv) noexcept {
+    guarded_step(ctx, "groupfit_merge", [&](agg_state& st) {
         sqlite3_value* v = argv[0];
         if (sqlite3_value_type(v) == SQLITE_NULL) return;
         if (sqlite3_value_type(v) != SQLITE_BLOB)
             throw groupfit::error(std::string("model must be a BLOB made by groupfit(), got ") +
                                   type_name(sqlite3_value_type(v)));
         const auto& lim = config_of(ctx)->lim;
-        const std::string_view blob(static_cast<const char*>(sqlite3_value_blob(v)),
-                                    sqlite3_value_bytes(v));
-        auto* st = static_cast<agg_state*>(sqlite3_aggregate_context(ctx, sizeof(agg_state)));
-        if (!st) throw std::bad_alloc();
-        if (!st->s) st->s = new summary(summary::deserialize(blob, lim));
-        else st->s->merge_blob(blob, lim);  // no intermediate summary per row
+        const std::string_view blob = blob_of(v);
+        if (!st.s) st.s = new summary(summary::deserialize(blob, lim));
+        else st.s->merge_blob(blob, lim);  // no intermediate summary per row
     });
 }
 
-/* Shared xFinal: the model BLOB, or NULL when no row (or model) was seen. */
-void model_final(sqlite3_context* ctx, const char* fn) {
+/* Shared xFinal: the model BLOB, or NULL when no row (or model) was seen.
+** After a failed xStep SQLite calls it only to clean up: the summary is freed
+** and nothing is computed. */
+void model_final(sqlite3_context* ctx, const char* fn) noexcept {
     auto* st = static_cast<agg_state*>(sqlite3_aggregate_context(ctx, 0));
     std::unique_ptr<summary> s(st ? st->s : nullptr);
     if (st) st->s = nullptr;
+    if (st && st->failed) return;
     if (!s) return sqlite3_result_null(ctx);
     guarded(ctx, fn, [&] {
         std::string blob = s->serialize();
         sqlite3_result_blob64(ctx, blob.data(), blob.size(), SQLITE_TRANSIENT);
     });
 }
-void groupfit_final(sqlite3_context* ctx) { model_final(ctx, "groupfit"); }
-void groupfit_weighted_final(sqlite3_context* ctx) { model_final(ctx, "groupfit_weighted"); }
-void merge_final(sqlite3_context* ctx) { model_final(ctx, "groupfit_merge"); }
+void groupfit_final(sqlite3_context* ctx) noexcept { model_final(ctx, "groupfit"); }
+void groupfit_weighted_final(sqlite3_context* ctx) noexcept { model_final(ctx, "groupfit_weighted"); }
+void merge_final(sqlite3_context* ctx) noexcept { model_final(ctx, "groupfit_merge"); }
 
 /* ---------------------------------------------------------------- scalars */
 
-void limit_func(sqlite3_context* ctx, int argc, sqlite3_value** argv) {
+void limit_func(sqlite3_context* ctx, int argc, sqlite3_value** argv) noexcept {
     guarded(ctx, "groupfit_limit", [&] {
         auto& lim = config_of(ctx)->lim;
-        const char* name = reinterpret_cast<const char*>(sqlite3_value_text(argv[0]));
-        const std::string n = name ? name : "";
+        // Up to the first NUL, like every option text.
+        const std::string n = sqlite3_value_type(argv[0]) == SQLITE_NULL ? "" : text_of(argv[0]).data();
         sqlite3_int64 old;
         if (n == "levels") old = static_cast<sqlite3_int64>(lim.max_levels);
         else if (n == "covariates") old = lim.max_covariates;
@@ -366,40 +426,78 @@ struct report_cursor {
 ** groupfit_contrast, then options) is bound; bound arguments arrive in argv in
 ** that order. */
 
-void set_vtab_error(sqlite3_vtab* vt, const std::string& msg) {
+/* Sets the message of an error returned by a virtual-table method. Returns the
+** code to return: SQLITE_ERROR, or SQLITE_NOMEM when the message cannot be
+** allocated. */
+int vtab_error(sqlite3_vtab* vt, const char* fn, const char* what) noexcept {
+    sqlite3_free(vt->zErrMsg);
+    vt->zErrMsg = sqlite3_mprintf("%s: %s", fn, what);
+    return vt->zErrMsg ? SQLITE_ERROR : SQLITE_NOMEM;
+}
+int set_vtab_error(sqlite3_vtab* vt, const std::string& msg) noexcept {
     sqlite3_free(vt->zErrMsg);
     vt->zErrMsg = sqlite3_mprintf("%s", msg.c_str());
+    return vt->zErrMsg ? SQLITE_ERROR : SQLITE_NOMEM;
 }
 
-int report_connect(sqlite3* db, void* aux, int, const char* const*, sqlite3_vtab** out, char** err) {
+/* The result code of an exception caught in a virtual-table method (which
+** must be called from a catch block): SQLITE_NOMEM for std::bad_alloc, else
+** SQLITE_ERROR with the message "<function>: <what>" set on vt. */
+int vtab_exception(sqlite3_vtab* vt, const char* fn) noexcept {
+    try {
+        throw;
+    } catch (const std::bad_alloc&) {
+        return SQLITE_NOMEM;
+    } catch (const groupfit::error& e) {
+        return vtab_error(vt, fn, e.what());
+    } catch (const std::exception& e) {
+        char* what = sqlite3_mprintf("internal error: %s", e.what());
+        if (!what) return SQLITE_NOMEM;
+        const int rc = vtab_error(vt, fn, what);
+        sqlite3_free(what);
+        return rc;
+    } catch (...) {
+        return vtab_error(vt, fn, "internal error: unknown exception");
+    }
+}
+
+int report_connect(sqlite3* db, void* aux, int, const char* const*, sqlite3_vtab** out, char** err) noexcept {
     auto* a = static_cast<report_module_aux*>(aux);
-    std::string schema = "CREATE TABLE x(";
-    for (const auto& c : a->kind->columns()) schema += c + ",";
-    schema += a->kind->takes_weights ? "model HIDDEN, weights HIDDEN, options HIDDEN)"
-                                     : "model HIDDEN, options HIDDEN)";
-    int rc = sqlite3_declare_vtab(db, schema.c_str());
-    if (rc != SQLITE_OK) return rc;
-    auto* vt = static_cast<report_vtab*>(sqlite3_malloc(sizeof(report_vtab)));
-    if (!vt) return SQLITE_NOMEM;
-    std::memset(vt, 0, sizeof *vt);
-    vt->kind = a->kind;
-    vt->config = a->config;
-    vt->ncol = static_cast<int>(a->kind->columns().size());
-    vt->nargs = a->kind->takes_weights ? 3 : 2;
-    sqlite3_vtab_config(db, SQLITE_VTAB_INNOCUOUS);
-    *out = &vt->base;
-    (void)err;
-    return SQLITE_OK;
+    *out = nullptr;
+    (void)err;  // the only failures are SQLite's own (its error state is set) and NOMEM
+    try {
+        std::string schema = "CREATE TABLE x(";
+        for (const auto& c : a->kind->columns()) schema += c + ",";
+        schema += a->kind->takes_weights ? "model HIDDEN, weights HIDDEN, options HIDDEN)"
+                                         : "model HIDDEN, options HIDDEN)";
+        const int rc = sqlite3_declare_vtab(db, schema.c_str());
+        if (rc != SQLITE_OK) return rc;
+        auto* vt = static_cast<report_vtab*>(sqlite3_malloc(sizeof(report_vtab)));
+        if (!vt) return SQLITE_NOMEM;
+        std::memset(vt, 0, sizeof *vt);
+        vt->kind = a->kind;
+        vt->config = a->config;
+        vt->ncol = static_cast<int>(a->kind->columns().size());
+        vt->nargs = a->kind->takes_weights ? 3 : 2;
+        sqlite3_vtab_config(db, SQLITE_VTAB_INNOCUOUS);
+        *out = &vt->base;
+        return SQLITE_OK;
+    } catch (const std::bad_alloc&) {
+        return SQLITE_NOMEM;
+    } catch (...) {
+        return SQLITE_ERROR;  // not reached: building the schema throws nothing else
+    }
 }
 
-int report_disconnect(sqlite3_vtab* vt) {
+int report_disconnect(sqlite3_vtab* vt) noexcept {
+    sqlite3_free(vt->zErrMsg);
     sqlite3_free(vt);
     return SQLITE_OK;
 }
 
 constexpr int missing_shift = 8;  // idxNum bits above the argument mask: missing argument + 1
 
-int report_best_index(sqlite3_vtab* tab, sqlite3_index_info* info) {
+int report_best_index(sqlite3_vtab* tab, sqlite3_index_info* info) noexcept {
     auto* vt = reinterpret_cast<report_vtab*>(tab);
     int where[3] = {-1, -1, -1};
     bool seen_unusable[3] = {false, false, false};
@@ -438,28 +536,29 @@ int report_best_index(sqlite3_vtab* tab, sqlite3_index_info* info) {
     return SQLITE_OK;
 }
 
-int report_open(sqlite3_vtab*, sqlite3_vtab_cursor** out) {
+int report_open(sqlite3_vtab*, sqlite3_vtab_cursor** out) noexcept {
     auto* cur = new (std::nothrow) report_cursor();
     if (!cur) return SQLITE_NOMEM;
     *out = &cur->base;
     return SQLITE_OK;
 }
 
-void clear_args(report_cursor* cur) {
+void clear_args(report_cursor* cur) noexcept {
     for (auto& a : cur->args) {
         sqlite3_value_free(a);
         a = nullptr;
     }
 }
 
-int report_close(sqlite3_vtab_cursor* c) {
+int report_close(sqlite3_vtab_cursor* c) noexcept {
     auto* cur = reinterpret_cast<report_cursor*>(c);
     clear_args(cur);
     delete cur;
     return SQLITE_OK;
 }
 
-int report_filter(sqlite3_vtab_cursor* c, int idx, const char*, int argc, sqlite3_value** argv) {
+/* On any failure the cursor is left empty (at EOF, no arguments kept). */
+int report_filter(sqlite3_vtab_cursor* c, int idx, const char*, int argc, sqlite3_value** argv) noexcept {
     auto* cur = reinterpret_cast<report_cursor*>(c);
     auto* vt = reinterpret_cast<report_vtab*>(c->pVtab);
     cur->result = groupfit::table{};
@@ -467,85 +566,112 @@ int report_filter(sqlite3_vtab_cursor* c, int idx, const char*, int argc, sqlite
     clear_args(cur);
     if (const int missing = (idx >> missing_shift) - 1; missing >= 0) {
         sqlite3_vtab* tab = c->pVtab;
-        set_vtab_error(tab, std::string(vt->kind->name) + ": the " +
-                                     (missing == 0 ? "model" : "weights") + " argument is missing");
-        return SQLITE_ERROR;
-    }
-    sqlite3_value* bound[3] = {nullptr, nullptr, nullptr};
-    for (int a = 0, next = 0; a < vt->nargs; ++a)
-        if ((idx & (1 << a)) && next < argc) {
-            bound[a] = argv[next++];
-            cur->args[a] = sqlite3_value_dup(bound[a]);
+        try {
+            return set_vtab_error(tab, std::string(vt->kind->name) + ": the " +
+                                           (missing == 0 ? "model" : "weights") + " argument is missing");
+        } catch (...) {
+            return vtab_exception(tab, vt->kind->name);
         }
-    sqlite3_value* model = bound[0];
-    sqlite3_value* weights = vt->nargs == 3 ? bound[1] : nullptr;
-    sqlite3_value* opts = bound[vt->nargs - 1];
-    if (!model || sqlite3_value_type(model) == SQLITE_NULL) return SQLITE_OK;  // no rows
+    }
     try {
+        // The bound arguments, kept for the hidden columns (xColumn).
+        sqlite3_value* bound[3] = {nullptr, nullptr, nullptr};
+        for (int a = 0, next = 0; a < vt->nargs; ++a)
+            if ((idx & (1 << a)) && next < argc) {
+                bound[a] = argv[next++];
+                cur->args[a] = sqlite3_value_dup(bound[a]);
+                if (!cur->args[a]) throw std::bad_alloc();
+            }
+        sqlite3_value* model = bound[0];
+        sqlite3_value* weights = vt->nargs == 3 ? bound[1] : nullptr;
+        sqlite3_value* opts = bound[vt->nargs - 1];
+        if (!model || sqlite3_value_type(model) == SQLITE_NULL) return SQLITE_OK;  // no rows
         if (sqlite3_value_type(model) != SQLITE_BLOB)
             throw groupfit::error(std::string("model must be a BLOB made by groupfit(), got ") +
                                   type_name(sqlite3_value_type(model)));
-        std::string text, wtext;
+        // Option and weight texts are read up to their first NUL.
+        std::string_view text, wtext;
         if (opts && sqlite3_value_type(opts) != SQLITE_NULL) {
             if (sqlite3_value_type(opts) != SQLITE_TEXT)
                 throw groupfit::error(std::string("options must be text, got ") +
                                       type_name(sqlite3_value_type(opts)));
-            text = reinterpret_cast<const char*>(sqlite3_value_text(opts));
+            text = text_of(opts).data();
         }
         if (vt->nargs == 3) {
             if (!weights || sqlite3_value_type(weights) != SQLITE_TEXT)
                 throw groupfit::error(std::string("weights must be text such as 'a=1, b=-1', got ") +
                                       type_name(weights ? sqlite3_value_type(weights) : SQLITE_NULL));
-            wtext = reinterpret_cast<const char*>(sqlite3_value_text(weights));
+            wtext = text_of(weights).data();
         }
         const groupfit::options o = groupfit::parse_options(text);
-        const summary s = summary::deserialize(
-            std::string_view(static_cast<const char*>(sqlite3_value_blob(model)),
-                             sqlite3_value_bytes(model)),
-            vt->config->lim);
+        const summary s = summary::deserialize(blob_of(model), vt->config->lim);
         if (s.cells() == 0)
             throw groupfit::error("the model has no usable rows (" +
                                   std::to_string(s.dropped_total()) +
                                   (s.dropped_total() == 1 ? " row was" : " rows were") +
                                   " dropped for NULLs or zero weights)");
         cur->result = vt->kind->make(s, o, wtext);
-    } catch (const std::bad_alloc&) {
-        return SQLITE_NOMEM;
-    } catch (const std::exception& e) {
-        set_vtab_error(c->pVtab, std::string(vt->kind->name) + ": " + e.what());
-        return SQLITE_ERROR;
+    } catch (...) {
+        cur->result = groupfit::table{};
+        clear_args(cur);
+        return vtab_exception(c->pVtab, vt->kind->name);
     }
     return SQLITE_OK;
 }
 
-int report_next(sqlite3_vtab_cursor* c) {
+int report_next(sqlite3_vtab_cursor* c) noexcept {
     ++reinterpret_cast<report_cursor*>(c)->row;
     return SQLITE_OK;
 }
 
-int report_eof(sqlite3_vtab_cursor* c) {
+int report_eof(sqlite3_vtab_cursor* c) noexcept {
     auto* cur = reinterpret_cast<report_cursor*>(c);
     return cur->row >= cur->result.rows.size();
 }
 
-int report_column(sqlite3_vtab_cursor* c, sqlite3_context* ctx, int col) {
+/* Copies a kept argument into the result. Text and blobs go through
+** sqlite3_result_text64/blob64, which report SQLITE_NOMEM on the context when
+** the copy fails (so a failed copy never shows as a NULL). */
+void result_copy(sqlite3_context* ctx, sqlite3_value* v) {
+    switch (sqlite3_value_type(v)) {
+    case SQLITE_INTEGER: return sqlite3_result_int64(ctx, sqlite3_value_int64(v));
+    case SQLITE_FLOAT: return sqlite3_result_double(ctx, sqlite3_value_double(v));
+    case SQLITE_TEXT: {
+        const std::string_view t = text_of(v);
+        return sqlite3_result_text64(ctx, t.data(), t.size(), SQLITE_TRANSIENT, SQLITE_UTF8);
+    }
+    case SQLITE_BLOB: {
+        const std::string_view b = blob_of(v);
+        return sqlite3_result_blob64(ctx, b.empty() ? "" : b.data(), b.size(), SQLITE_TRANSIENT);
+    }
+    default: return sqlite3_result_null(ctx);
+    }
+}
+
+int report_column(sqlite3_vtab_cursor* c, sqlite3_context* ctx, int col) noexcept {
     auto* cur = reinterpret_cast<report_cursor*>(c);
     auto* vt = reinterpret_cast<report_vtab*>(c->pVtab);
-    if (col >= vt->ncol) {
-        sqlite3_value* a = col - vt->ncol < vt->nargs ? cur->args[col - vt->ncol] : nullptr;
-        if (a) sqlite3_result_value(ctx, a);
-        return SQLITE_OK;
+    try {
+        if (col >= vt->ncol) {
+            sqlite3_value* a = col - vt->ncol < vt->nargs ? cur->args[col - vt->ncol] : nullptr;
+            if (a) result_copy(ctx, a);
+            return SQLITE_OK;
+        }
+        const groupfit::value& v = cur->result.rows[cur->row][col];
+        if (auto* i = std::get_if<std::int64_t>(&v)) sqlite3_result_int64(ctx, *i);
+        else if (auto* d = std::get_if<double>(&v)) sqlite3_result_double(ctx, *d);
+        else if (auto* s = std::get_if<std::string>(&v))
+            sqlite3_result_text64(ctx, s->data(), s->size(), SQLITE_TRANSIENT, SQLITE_UTF8);
+        else sqlite3_result_null(ctx);
+    } catch (const std::bad_alloc&) {
+        sqlite3_result_error_nomem(ctx);
+    } catch (...) {
+        return vtab_exception(c->pVtab, vt->kind->name);
     }
-    const groupfit::value& v = cur->result.rows[cur->row][col];
-    if (auto* i = std::get_if<std::int64_t>(&v)) sqlite3_result_int64(ctx, *i);
-    else if (auto* d = std::get_if<double>(&v)) sqlite3_result_double(ctx, *d);
-    else if (auto* s = std::get_if<std::string>(&v))
-        sqlite3_result_text64(ctx, s->data(), s->size(), SQLITE_TRANSIENT, SQLITE_UTF8);
-    else sqlite3_result_null(ctx);
     return SQLITE_OK;
 }
 
-int report_rowid(sqlite3_vtab_cursor* c, sqlite3_int64* out) {
+int report_rowid(sqlite3_vtab_cursor* c, sqlite3_int64* out) noexcept {
     *out = static_cast<sqlite3_int64>(reinterpret_cast<report_cursor*>(c)->row) + 1;
     return SQLITE_OK;
 }
@@ -568,7 +694,7 @@ sqlite3_module report_module = [] {
     return m;
 }();
 
-void free_module_aux(void* p) {
+void free_module_aux(void* p) noexcept {
     auto* a = static_cast<report_module_aux*>(p);
     release_config(a->config);
     delete a;
@@ -640,10 +766,13 @@ __declspec(dllexport)
 #else
 __attribute__((visibility("default")))
 #endif
-int sqlite3_groupfit_init(sqlite3* db, char** err, const sqlite3_api_routines* api) {
+int sqlite3_groupfit_init(sqlite3* db, char** err, const sqlite3_api_routines* api) noexcept {
     SQLITE_EXTENSION_INIT2(api);
     auto* config = new (std::nothrow) connection_config();
-    if (!config) return SQLITE_NOMEM;
+    if (!config) {
+        if (err) *err = sqlite3_mprintf("groupfit: registration failed (%s)", sqlite3_errstr(SQLITE_NOMEM));
+        return SQLITE_NOMEM;
+    }
     config->refs = 1;  // held by this function until registration ends
     int rc = SQLITE_OK;
     for (const auto& f : functions) {

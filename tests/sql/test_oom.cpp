@@ -505,6 +505,17 @@ std::vector<scenario> scenarios() {
         {"dunnett",
          with_setup({"SELECT * FROM groupfit_pairs(" + m2 + ", 'vs=b; side=greater; conf=0.9')"}),
          after_setup},
+        // Crossed factors (core/factorial.cpp): the general path's reports.
+        {"crossed",
+         with_setup({"SELECT * FROM groupfit_tests((SELECT groupfit(y, groupfit_cross(g, seg), x) FROM t))",
+                     "SELECT * FROM groupfit_levels((SELECT groupfit(y, groupfit_cross(g, seg)) FROM t), "
+                     "'means=proportional')",
+                     "SELECT * FROM groupfit_coef((SELECT groupfit(y, groupfit_cross(g, seg), x) FROM t), "
+                     "'coding=effect; terms=main')",
+                     "SELECT * FROM groupfit_pairs((SELECT groupfit(y, groupfit_cross(g, seg)) FROM t), "
+                     "'by=factor2; adjust=holm')",
+                     "SELECT * FROM groupfit_summary((SELECT groupfit(y, g, x) FROM t), 'slopes=separate')"}),
+         after_setup},
         {"contrast",
          with_setup({"SELECT * FROM groupfit_contrast(" + m + ", 'a=1, b=-1')",
                      "SELECT * FROM groupfit_contrast(" + m + ", 'a=1, b=-1; c=1, \"d 4\"=-1', 'conf=0.9')",

@@ -21,7 +21,7 @@ coding::coding(const fit& f) : f_(&f), kind_(f.opts().coding), L_(f.levels()), s
     const options& o = f.opts();
     if (kind_ == coding_kind::dummy) base_ = 0;
     if (kind_ == coding_kind::effect || kind_ == coding_kind::weighted_effect) base_ = L_ - 1;
-    if (o.has_base) base_ = f.find_level(o.base, "base");
+    if (o.has_base) base_ = f.find_level(o.base, "options: base");
     if (kind_ == coding_kind::polynomial) {
         if (L_ > max_polynomial_levels)
             throw error("options: coding=polynomial supports at most " +

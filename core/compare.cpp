@@ -103,7 +103,7 @@ table pairs_report(const fit& f) {
 
     std::vector<std::pair<std::size_t, std::size_t>> pairs;
     if (o.has_vs) {
-        const std::size_t c = f.find_level(o.vs, "vs");
+        const std::size_t c = f.find_level(o.vs, "options: vs");
         for (std::size_t i = 0; i < L; ++i)
             if (i != c) pairs.emplace_back(i, c);
     } else {
@@ -265,7 +265,7 @@ table contrast_report(const fit& f, std::string_view weights) {
             double w = 0;
             if (!parse_real(wtext, w))
                 throw error("weights: the weight of '" + label + "' must be a number, not '" + wtext + "'");
-            const std::size_t i = f.find_level(label, "weights");
+            const std::size_t i = f.find_level(label, "weights: a contrast");
             if (seen[i]) throw error("weights: level '" + label + "' appears twice in one contrast");
             seen[i] = true;
             k[i] = w;

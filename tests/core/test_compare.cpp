@@ -1132,7 +1132,7 @@ TEST(BadInput, ExactMessages) {
         {"conf out of range", error_of([] { parse_options("conf=1.5"); }),
          "options: conf must be between 0 and 1, for example 0.95 (not '1.5')"},
         {"weights: unknown level", contrast_err(three.s, "", "a=1, zzz=-1"),
-         "options: weights names an unknown level 'zzz' (levels: a, b, c)"},
+         "weights: a contrast names an unknown level 'zzz' (levels: a, b, c)"},
         {"weights: not a number", contrast_err(three.s, "", "a=1, b=minus one"),
          "weights: the weight of 'b' must be a number, not 'minus one'"},
         {"weights: empty weight", contrast_err(three.s, "", "a=1, b="),

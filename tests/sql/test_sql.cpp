@@ -843,6 +843,36 @@ TEST(BadInput, WeightedArgumentPositionsAndNegativeWeight) {
               "groupfit_weighted: weight (argument 1) must be >= 0, got -2");
 }
 
+// Finite values whose squares overflow a double (around 1e154 and beyond):
+// the aggregate fails at that row, and groupfit_merge fails when merged sums
+// overflow, instead of returning a model that every report would reject
+// (found by fuzzing: tests/fuzz/corpus/fuzz_sql/regress-huge-*, -merge-nonfinite).
+TEST(BadInput, ValuesWhoseSquaresOverflow) {
+    database db;
+    const std::string too_large =
+        "values too large for a model: a sum of squares overflowed (rescale the response, "
+        "weights or covariates)";
+    EXPECT_EQ(db.error("SELECT groupfit(column1, 'a') FROM (VALUES (1e308), (-1e308))"), "groupfit: " + too_large);
+    EXPECT_EQ(db.error("SELECT groupfit(1, 'a', column1) FROM (VALUES (1e200), (-1e200))"), "groupfit: " + too_large);
+    EXPECT_EQ(db.error("SELECT groupfit_weighted(column1, 1, 'a') FROM (VALUES (1e308), (1e308))"),
+              "groupfit_weighted: " + too_large);
+    // The error comes at the row (the fourth), not at the end: the bad text in
+    // the fifth row is never reached.
+    db.exec("CREATE TABLE h(y, g)");
+    db.exec("INSERT INTO h VALUES (1, 'a'), (2, 'a'), (1e300, 'b'), (-1e300, 'b'), ('oops', 'a')");
+    EXPECT_EQ(db.error("SELECT groupfit(y, g) FROM h"), "groupfit: " + too_large);
+    EXPECT_EQ(db.error("SELECT groupfit(y, g) FROM h GROUP BY g HAVING g = 'b'"), "groupfit: " + too_large);
+    // Large values whose squares stay finite make a model that reads back.
+    EXPECT_NEAR(db.scalar("SELECT mean FROM groupfit_levels((SELECT groupfit(column1, 'a') FROM "
+                          "(VALUES (1e150), (-1e150), (3e150))))").d,
+                1e150, 1e136);
+    // Each model is fine alone; merged, the weight sum overflows.
+    const std::string one = db.model("SELECT groupfit_weighted(1e308, 1, 'a')");
+    EXPECT_EQ(db.scalar("SELECT rows_used FROM groupfit_summary(?1)", {blob{one}}).i, 1);
+    EXPECT_EQ(db.error("SELECT groupfit_merge(m) FROM (SELECT ?1 m UNION ALL SELECT ?1)", {blob{one}}),
+              "groupfit_merge: " + too_large);
+}
+
 TEST(BadInput, TooFewArguments) {
     database db;
     EXPECT_EQ(db.error("SELECT groupfit(1)"), "groupfit: needs at least (response, grouping)");
@@ -970,6 +1000,11 @@ TEST(BadInput, OptionErrors) {
     EXPECT_EQ(err("order=a,zz"),
               "groupfit_coef: options: order names an unknown level 'zz' (levels: a, b, c)");
     EXPECT_EQ(err("order=a,a"), "groupfit_coef: options: order names level 'a' twice");
+    // A contrast naming an unknown level: the message names the weights argument.
+    EXPECT_EQ(db.error("SELECT * FROM groupfit_contrast(?1, 'a=1, zz=-1')", {blob{m}}),
+              "groupfit_contrast: weights: a contrast names an unknown level 'zz' (levels: a, b, c)");
+    EXPECT_EQ(err("vs=zz", "groupfit_pairs"),
+              "groupfit_pairs: options: vs names an unknown level 'zz' (levels: a, b, c)");
     EXPECT_EQ(err("foo=1"),
               "groupfit_coef: options: unknown key 'foo' (keys: coding, base, order, conf, names, "
               "spacing, custom, ss, at, adjust, vs, side)");

@@ -153,7 +153,13 @@ std::size_t summary::cell_for(const level& lv, const limits& lim) {
 std::size_t summary::cell_for(level_kind kind, const void* data, std::size_t len,
                               const limits& lim) {
     if (kind == level_kind::real) {
-        const level lv = level::from_real(*static_cast<const double*>(data));
+        const double v = *static_cast<const double*>(data);
+        // The BLOB format stores finite numbers only (its decoder rejects the
+        // rest): an infinite level would make a model that no report can read.
+        if (!std::isfinite(v)) [[unlikely]]
+            throw error(std::string("a real level must be finite, got ") +
+                        (std::isnan(v) ? "NaN" : v > 0 ? "Inf" : "-Inf"));
+        const level lv = level::from_real(v);
         if (lv.kind == level_kind::integer) return cell_for(lv, lim);
     }
     // Key = kind byte + payload, the same bytes as level::key().

@@ -87,7 +87,7 @@ public:
     std::int64_t dropped_total() const;
 
     /// The cell of a level, created on first sight. Throws groupfit::error when
-    /// the cap on levels would be exceeded.
+    /// the cap on levels would be exceeded or a real level is not finite.
     std::size_t cell_for(const level& lv, const limits& lim);
     /// The same from raw bytes, without building a level unless the cell is new:
     /// for integers `data` points to an int64, for reals to a double (normalised

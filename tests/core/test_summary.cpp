@@ -7,6 +7,7 @@
 #include <cstring>
 #include <fstream>
 #include <functional>
+#include <limits>
 #include <random>
 #include <string>
 #include <utility>
@@ -186,6 +187,13 @@ TEST(Summary, ValuesWhoseSquaresOverflowFailAtTheRow) {
                   overflow_text);
     }
     {
+        summary s(1, false);  // no huge square: y over a tiny covariate spread, 1e300 / 1e-10
+        const double r1[] = {1e-10, 1e300}, r2[] = {-1e-10, -1e300};
+        s.add_row(s.cell_for(level::from_text("a"), lim), r1, 1.0);
+        EXPECT_EQ(error_of([&] { s.add_row(s.cell_for(level::from_text("a"), lim), r2, 1.0); }),
+                  overflow_text);
+    }
+    {
         summary s(0, true);  // the weight sum itself overflows
         const double y1 = 1.0, y2 = 2.0;
         s.add_row(s.cell_for(level::from_text("a"), lim), &y1, 1e308);
@@ -199,6 +207,23 @@ TEST(Summary, ValuesWhoseSquaresOverflowFailAtTheRow) {
         EXPECT_EQ(t.rows_used(), 3);
         EXPECT_NEAR(t.cell_mean(0, 0), 5e149 / 3, 1e135);
     }
+}
+
+// The BLOB format stores finite numbers only, so a real level must be finite
+// (found by fuzzing: groupfit(y, 1e999) made a model no report could read).
+TEST(Summary, RealLevelsMustBeFinite) {
+    limits lim;
+    summary s(0, false);
+    const double inf = std::numeric_limits<double>::infinity();
+    EXPECT_EQ(error_of([&] { s.cell_for(level::from_real(inf), lim); }), "a real level must be finite, got Inf");
+    EXPECT_EQ(error_of([&] { s.cell_for(level::from_real(-inf), lim); }), "a real level must be finite, got -Inf");
+    EXPECT_EQ(error_of([&] { s.cell_for(level::from_real(std::nan("")), lim); }),
+              "a real level must be finite, got NaN");
+    EXPECT_EQ(s.cells(), 0u);
+    const double y = 1.0;
+    s.add_row(s.cell_for(level::from_real(1e308), lim), &y, 1.0);
+    s.add_row(s.cell_for(level::from_real(2.5), lim), &y, 1.0);
+    EXPECT_EQ(summary::deserialize(s.serialize(), lim).cells(), 2u);
 }
 
 // Two finite models can merge into an infinite one: merge and merge_blob

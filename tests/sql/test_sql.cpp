@@ -810,6 +810,15 @@ TEST(BadInput, NonNumericResponseAndCovariates) {
               "groupfit: covariate 1 (argument 3) must be a finite number, got -Inf");
     EXPECT_EQ(db.error("SELECT groupfit(1e999, 'a')"),
               "groupfit: response (argument 1) must be a finite number, got Inf");
+    // Any value is a level, but not an infinite number: the model could not
+    // store it (found by fuzzing: tests/fuzz/corpus/fuzz_sql/regress-infinite-level*).
+    EXPECT_EQ(db.error("SELECT groupfit(1, 1e999)"),
+              "groupfit: grouping (argument 2) must be finite when it is a number, got Inf");
+    EXPECT_EQ(db.error("SELECT groupfit(NULL, -1e999)"),
+              "groupfit: grouping (argument 2) must be finite when it is a number, got -Inf");
+    EXPECT_EQ(db.error("SELECT groupfit_weighted(1, 2, -1e999, 3)"),
+              "groupfit_weighted: grouping (argument 3) must be finite when it is a number, got -Inf");
+    EXPECT_EQ(db.scalar("SELECT level FROM groupfit_levels((SELECT groupfit(1, 1e308)))").s, "1e+308");
     // Long texts are cut to 40 characters in the message.
     EXPECT_EQ(db.error("SELECT groupfit('abcdefghijklmnopqrstuvwxyz0123456789ABCDEFGHIJ', 'a')"),
               "groupfit: response (argument 1) must be a number, got text "

@@ -1009,9 +1009,18 @@ TEST(BadInput, OptionErrors) {
     EXPECT_EQ(err("order=a,zz"),
               "groupfit_coef: options: order names an unknown level 'zz' (levels: a, b, c)");
     EXPECT_EQ(err("order=a,a"), "groupfit_coef: options: order names level 'a' twice");
-    // A contrast naming an unknown level: the message names the weights argument.
-    EXPECT_EQ(db.error("SELECT * FROM groupfit_contrast(?1, 'a=1, zz=-1')", {blob{m}}),
+    EXPECT_EQ(err("order=\"a"), "groupfit_coef: options: a double quote is not closed");
+    EXPECT_EQ(err("order=\"a\"b"), "groupfit_coef: options: unexpected text after a closing quote near 'b'");
+    // Errors in groupfit_contrast's weights name the weights argument, even
+    // where the parsing is shared with the options (found by fuzz_weights).
+    auto werr = [&](const std::string& weights) {
+        return db.error("SELECT * FROM groupfit_contrast(?1, ?2)", {blob{m}, weights});
+    };
+    EXPECT_EQ(werr("a=1, zz=-1"),
               "groupfit_contrast: weights: a contrast names an unknown level 'zz' (levels: a, b, c)");
+    EXPECT_EQ(werr("\"a=1, b=-1"), "groupfit_contrast: weights: a double quote is not closed");
+    EXPECT_EQ(werr("\"a\"x=1, b=-1"),
+              "groupfit_contrast: weights: unexpected text after a closing quote near 'x'");
     EXPECT_EQ(err("vs=zz", "groupfit_pairs"),
               "groupfit_pairs: options: vs names an unknown level 'zz' (levels: a, b, c)");
     EXPECT_EQ(err("foo=1"),

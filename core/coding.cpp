@@ -36,7 +36,7 @@ std::size_t coded_levels::find(const std::string& label, const char* option) con
     std::string list;
     for (std::size_t i = 0; i < labels.size() && i < 20; ++i) list += (i ? ", " : "") + labels[i];
     if (labels.size() > 20) list += ", ... (" + std::to_string(labels.size()) + " levels)";
-    throw error(std::string("options: ") + option + " names an unknown level '" + label +
+    throw error(std::string(option) + " names an unknown level '" + label +
                 "' (levels: " + list + ")");
 }
 
@@ -47,7 +47,7 @@ coding::coding(coded_levels levels, const options& o, bool use_base)
       size_(v_.labels.size()) {
     if (kind_ == coding_kind::dummy) base_ = 0;
     if (kind_ == coding_kind::effect || kind_ == coding_kind::weighted_effect) base_ = L_ - 1;
-    if (o.has_base && use_base) base_ = v_.find(o.base, "base");
+    if (o.has_base && use_base) base_ = v_.find(o.base, "options: base");
     if (kind_ == coding_kind::polynomial) {
         if (L_ > max_polynomial_levels)
             throw error("options: coding=polynomial supports at most " +

@@ -40,7 +40,8 @@ struct coded_levels {
     std::vector<std::string> labels;
     std::vector<double> weights;
     bool covariates = false;
-    /// Index of the level with this label; throws naming the option.
+    /// Index of the level with this label; throws "<option> names an unknown
+    /// level ..." (option: "options: base", ...).
     std::size_t find(const std::string& label, const char* option) const;
 };
 

@@ -157,7 +157,7 @@ void pairs_rows(const mean_family& f, const options& o, const std::string& withi
 
     std::vector<std::pair<std::size_t, std::size_t>> pairs;
     if (o.has_vs) {
-        const std::size_t c = f.find(o.vs, "vs");
+        const std::size_t c = f.find(o.vs, "options: vs");
         for (std::size_t i = 0; i < L; ++i)
             if (i != c) pairs.emplace_back(i, c);
     } else {
@@ -317,23 +317,23 @@ table contrast_report(const mean_family& f, const options& o, std::string_view w
     std::vector<item> items;
     std::vector<std::string> written;
     std::vector<bool> is_contrast;
-    for (const std::string& spec : detail::split_list(weights, ';', false)) {
+    for (const std::string& spec : detail::split_list(weights, ';', false, "weights")) {
         if (spec.empty()) continue;
         Eigen::VectorXd k = Eigen::VectorXd::Zero(L);
         std::vector<bool> seen(L, false);
         std::string out;
-        for (const std::string& term : detail::split_list(spec, ',', false)) {
+        for (const std::string& term : detail::split_list(spec, ',', false, "weights")) {
             const auto eq = term.rfind('=');
             if (term.empty() || eq == std::string::npos)
                 throw error("weights: '" + term + "' is not level=weight (for example "
                             "'a=1, b=-0.5, c=-0.5; a=1, d=-1')");
-            auto lab = detail::split_list(std::string_view(term).substr(0, eq), '\0', true);
+            auto lab = detail::split_list(std::string_view(term).substr(0, eq), '\0', true, "weights");
             const std::string label = lab.empty() ? std::string() : lab[0];
-            const std::string wtext = detail::split_list(std::string_view(term).substr(eq + 1), '\0', true)[0];
+            const std::string wtext = detail::split_list(std::string_view(term).substr(eq + 1), '\0', true, "weights")[0];
             double w = 0;
             if (!parse_real(wtext, w))
                 throw error("weights: the weight of '" + label + "' must be a number, not '" + wtext + "'");
-            const std::size_t i = f.find(label, "weights");
+            const std::size_t i = f.find(label, "weights: a contrast");
             if (seen[i]) throw error("weights: level '" + label + "' appears twice in one contrast");
             seen[i] = true;
             k[i] = w;

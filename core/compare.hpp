@@ -48,7 +48,8 @@ public:
     virtual ~mean_family() = default;
     virtual std::size_t size() const = 0;
     virtual std::string label(std::size_t i) const = 0;
-    /// Index of the mean with this label; throws naming the option.
+    /// Index of the mean with this label; throws "<where> names an unknown
+    /// level ..." (where: "options: vs", "weights: a contrast").
     virtual std::size_t find(const std::string& label, const char* option) const = 0;
     /// Value and standard error of sum_i k_i mean_i.
     virtual estimate combine(const Eigen::VectorXd& k) const = 0;

@@ -538,7 +538,7 @@ public:
             if (means_[i].label == label) return i;
             labels.push_back(means_[i].label);
         }
-        throw error(std::string("options: ") + option + " names an unknown level '" + label +
+        throw error(std::string(option) + " names an unknown level '" + label +
                     "' (levels: " + list_of(labels) + ")");
     }
     lin combination(const Eigen::VectorXd& k, bool& ok) const {

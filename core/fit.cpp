@@ -254,10 +254,10 @@ double fit::sigma2() const {
     return df > 0 ? sse_ / df : nan;
 }
 
-std::size_t fit::find_level(const std::string& label, const char* option) const {
+std::size_t fit::find_level(const std::string& label, const char* where) const {
     for (std::size_t i = 0; i < labels_.size(); ++i)
         if (labels_[i] == label) return i;
-    throw error(std::string("options: ") + option + " names an unknown level '" + label +
+    throw error(where + std::string(" names an unknown level '") + label +
                 "' (levels: " + level_list(labels_) + ")");
 }
 

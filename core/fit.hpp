@@ -54,8 +54,9 @@ public:
     std::size_t levels() const { return cell_.size(); }
     const level& level_at(std::size_t i) const { return s_->cell_level(cell_[i]); }
     std::string level_label(std::size_t i) const { return labels_[i]; }
-    /// Report index of a level named in an option; throws naming the option.
-    std::size_t find_level(const std::string& label, const char* option) const;
+    /// Report index of a level named by the user; throws "<where> names an
+    /// unknown level ..." (where: "options: base", "weights: a contrast", ...).
+    std::size_t find_level(const std::string& label, const char* where) const;
     std::int64_t level_rows(std::size_t i) const { return s_->cell_rows(cell_[i]); }
     double level_weight(std::size_t i) const { return w_[i]; }
     /// Observed (weighted) mean of the response in level i, raw scale.

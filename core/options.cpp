@@ -85,7 +85,7 @@ static std::string_view trim(std::string_view s) {
     return s;
 }
 
-std::vector<std::string> split_list(std::string_view text, char sep, bool unquote) {
+std::vector<std::string> split_list(std::string_view text, char sep, bool unquote, const char* what) {
     std::vector<std::string> out;
     std::string cur;
     bool quoted = false, was_quoted = false;
@@ -122,13 +122,13 @@ std::vector<std::string> split_list(std::string_view text, char sep, bool unquot
             finish();
         } else if (was_quoted) {
             if (!std::isspace(static_cast<unsigned char>(c)))
-                throw error("options: unexpected text after a closing quote near '" +
+                throw error(what + std::string(": unexpected text after a closing quote near '") +
                             std::string(text.substr(i, 20)) + "'");
         } else {
             cur += c;
         }
     }
-    if (quoted) throw error("options: a double quote is not closed");
+    if (quoted) throw error(what + std::string(": a double quote is not closed"));
     finish();
     return out;
 }

@@ -86,8 +86,10 @@ options parse_options(std::string_view text);
 const char* option_keys();
 
 namespace detail {
-/// Splits on `sep` outside double quotes; trims spaces; unquotes items.
-std::vector<std::string> split_list(std::string_view text, char sep, bool unquote);
+/// Splits on `sep` outside double quotes; trims spaces; unquotes items. Errors
+/// (an open quote, text after a closing quote) start with `what` and ": ".
+std::vector<std::string> split_list(std::string_view text, char sep, bool unquote,
+                                    const char* what = "options");
 }  // namespace detail
 
 }  // namespace groupfit

@@ -4,6 +4,7 @@
 #include <bit>
 #include <cmath>
 #include <cstring>
+#include <limits>
 
 #include "error.hpp"
 
@@ -69,6 +70,55 @@ std::int64_t summary::dropped_total() const {
     return n;
 }
 
+void summary::drop(drop_reason r) {
+    if (dropped_total() >= max_rows)
+        throw error("the model would count more than 2^53 dropped rows");
+    ++dropped_[static_cast<int>(r)];
+}
+
+void summary::merge_dropped(const std::array<std::int64_t, drop_reason_count>& other) {
+    std::int64_t add = 0;
+    for (auto v : other) add += v;  // each count and their sum are at most max_rows
+    if (add > max_rows - dropped_total())
+        throw error("the merged model would count more than 2^53 dropped rows");
+    for (int r = 0; r < drop_reason_count; ++r) dropped_[r] += other[r];
+}
+
+namespace {
+/// Bit 63 is set iff x is infinite or NaN (all exponent bits set): a branch-free
+/// test whose results OR together.
+inline std::uint64_t nonfinite_bit(double x) {
+    return (std::bit_cast<std::uint64_t>(x) & 0x7ff0000000000000ull) + 0x0010000000000000ull;
+}
+
+// The throws of the per-row checks, out of the hot path.
+[[noreturn, gnu::cold, gnu::noinline]] void throw_overflow() {
+    throw error("values too large for a model: a sum of squares overflowed (rescale the "
+                "response, weights or covariates)");
+}
+[[noreturn, gnu::cold, gnu::noinline]] void throw_too_many_rows() {
+    throw error("the model would have more than 2^53 rows");
+}
+}  // namespace
+
+void summary::check_finite(std::size_t c) const {
+    // Both parts of every double-double: an overflow can leave a finite high
+    // part with a NaN low part.
+    // Two entries per step, four independent lanes (the compiler vectorises it).
+    const ddouble* f = cell_d(c);
+    const std::size_t n = stride();
+    std::uint64_t a = nonfinite_bit(log_w_[c]), b = 0, e = 0, g = 0;
+    std::size_t i = 0;
+    for (; i + 1 < n; i += 2) {
+        a |= nonfinite_bit(f[i].hi);
+        b |= nonfinite_bit(f[i].lo);
+        e |= nonfinite_bit(f[i + 1].hi);
+        g |= nonfinite_bit(f[i + 1].lo);
+    }
+    if (i < n) a |= nonfinite_bit(f[i].hi) | nonfinite_bit(f[i].lo);
+    if ((a | b | e | g) >> 63) [[unlikely]] throw_overflow();
+}
+
 double summary::cell_mean(std::size_t c, int j) const {
     return (ddouble(cell_origin(c)[j]) + cell_rbar(c)[detail::rbar_index(p_ + 2, 0, j + 1)]).value();
 }
@@ -114,7 +164,13 @@ std::size_t summary::cell_for(const level& lv, const limits& lim) {
 std::size_t summary::cell_for(level_kind kind, const void* data, std::size_t len,
                               const limits& lim) {
     if (kind == level_kind::real) {
-        const level lv = level::from_real(*static_cast<const double*>(data));
+        const double v = *static_cast<const double*>(data);
+        // The BLOB format stores finite numbers only (its decoder rejects the
+        // rest): an infinite level would make a model that no report can read.
+        if (!std::isfinite(v)) [[unlikely]]
+            throw error(std::string("a real level must be finite, got ") +
+                        (std::isnan(v) ? "NaN" : v > 0 ? "Inf" : "-Inf"));
+        const level lv = level::from_real(v);
         if (lv.kind == level_kind::integer) return cell_for(lv, lim);
     }
     // Key = kind byte + payload, the same bytes as level::key().
@@ -145,6 +201,7 @@ std::size_t summary::cell_for(level_kind kind, const void* data, std::size_t len
 }
 
 void summary::add_row(std::size_t c, const double* values, double w) {
+    if (total_ >= max_rows) [[unlikely]] throw_too_many_rows();
     const int k = p_ + 2;
     double* o = origin(c);
     if (n_[c] == 0)
@@ -169,10 +226,15 @@ void summary::add_row(std::size_t c, const double* values, double w) {
     ++n_[c];
     ++total_;
     if (weighted_) log_w_[c] += std::log(w);
+    // Finite values whose squares overflow (around 1e154 and beyond) make the
+    // factor infinite or NaN: an error at this row, never a model that its own
+    // reports would reject.
+    check_finite(c);
 }
 
 void summary::merge_factor(std::size_t into, const double* fo, const ddouble* fd,
                            std::int64_t rows, double log_w) {
+    if (rows > max_rows - total_) throw error("the merged model would have more than 2^53 rows");
     const int k = p_ + 2;
     double* o = origin(into);
     const ddouble* fr = fd + k;
@@ -187,11 +249,10 @@ void summary::merge_factor(std::size_t into, const double* fo, const ddouble* fd
             for (int j = 1; j < k; ++j) row[j] += dd::two_diff(fo[j - 1], o[j - 1]);
         detail::include_row<ddouble>(k, d(into), rbar(into), row, fd[i], i);
     }
-    if (rows > (std::int64_t(1) << 53) - total_)
-        throw error("the merged model would have more than 2^53 rows");
     n_[into] += rows;
     total_ += rows;
     log_w_[into] += log_w;
+    check_finite(into);  // two finite models can merge into an infinite one
 }
 
 void summary::merge(const summary& other, const limits& lim) {
@@ -206,7 +267,7 @@ void summary::merge(const summary& other, const limits& lim) {
         std::size_t into = it != index_.end() ? it->second : add_cell(other.levels_[c], key, lim);
         merge_factor(into, other.cell_origin(c), other.cell_d(c), other.n_[c], other.log_w_[c]);
     }
-    for (int r = 0; r < drop_reason_count; ++r) dropped_[r] += other.dropped_[r];
+    merge_dropped(other.dropped_);
 }
 
 // ---------------------------------------------------------------------------
@@ -269,10 +330,8 @@ struct reader {
 }  // namespace
 
 std::string summary::serialize() const {
-    for (const ddouble& v : factor_)
-        if (!std::isfinite(v.hi))
-            throw error("values too large for a model: a sum of squares overflowed (rescale the "
-                        "response, weights or covariates)");
+    // add_row and merge check every change; this keeps any other path honest.
+    for (std::size_t c = 0; c < cells(); ++c) check_finite(c);
     std::string out;
     const int k = p_ + 2;
     out.reserve(72 + cells() * (32 + 8 * (p_ + 1) + 16 * stride()));
@@ -351,15 +410,21 @@ void summary::parse_blob(std::string_view blob, const limits& lim, OnHeader&& on
     if (ncell > lim.max_levels)
         throw error("the model has " + std::to_string(ncell) + " levels, more than the limit of " +
                     std::to_string(lim.max_levels));
+    // At most max_rows rows used and max_rows dropped, so that every count and
+    // sum of counts stays exact (and far from int64 overflow) whatever is merged.
+    constexpr std::uint64_t max_count = static_cast<std::uint64_t>(max_rows);
     std::array<std::int64_t, drop_reason_count> dropped{};
+    std::uint64_t total_dropped = 0;
     for (auto& v : dropped) {
-        v = static_cast<std::int64_t>(r.get<std::uint64_t>());
-        if (v < 0) throw error("not a groupfit model: a row count is out of range");
+        const auto u = r.get<std::uint64_t>();
+        total_dropped += u;  // no wrap: both terms are at most 2^64 - 1 and 2^53
+        if (u > max_count || total_dropped > max_count)
+            throw error("not a groupfit model: a row count is out of range");
+        v = static_cast<std::int64_t>(u);
     }
     on_header(static_cast<int>(p), (flags & 1) != 0, dropped);
     const int k = static_cast<int>(p) + 2;
     const std::size_t stride = k + k * (k - 1) / 2;
-    constexpr std::uint64_t max_rows = std::uint64_t(1) << 53;
     std::uint64_t total_rows = 0;
     std::vector<double> origin(p + 1);
     std::vector<ddouble> fac(stride);
@@ -386,10 +451,8 @@ void summary::parse_blob(std::string_view blob, const limits& lim, OnHeader&& on
             throw error("not a groupfit model: unknown level type " + std::to_string(kind));
         }
         const auto rows = r.get<std::uint64_t>();
-        // At most 2^53 rows in a model, so that every row total stays exact
-        // (and far from int64 overflow) whatever is merged.
-        total_rows += rows;
-        if (rows == 0 || rows > max_rows || total_rows > max_rows)
+        total_rows += rows;  // wraps only when rows itself is out of range
+        if (rows == 0 || rows > max_count || total_rows > max_count)
             throw error("not a groupfit model: a cell has an impossible row count");
         const double log_w = r.finite();
         for (auto& v : origin) v = r.finite();
@@ -445,7 +508,7 @@ void summary::merge_blob(std::string_view blob, const limits& lim) {
                             std::to_string(p));
             if (weighted != weighted_)
                 throw error("models differ in kind: one is weighted (groupfit_weighted) and one is not");
-            for (int r = 0; r < drop_reason_count; ++r) dropped_[r] += dropped[r];
+            merge_dropped(dropped);
             seen.assign(cells(), 0);
         },
         [&](level_kind kind, const void* data, std::size_t len, std::int64_t rows, double log_w,

@@ -51,6 +51,12 @@ struct limits {
     int max_covariates = 32;
 };
 
+/// The most rows a model holds, counted separately for the rows used (over all
+/// cells) and the rows dropped (over all reasons). Every count and every sum of
+/// counts then stays exact in a double and far from int64 overflow, whatever is
+/// merged or decoded; adding, merging or decoding beyond it throws.
+inline constexpr std::int64_t max_rows = std::int64_t(1) << 53;
+
 /// BLOB format written by this build. Version 1 (a double factor) is still
 /// read: its values become double-doubles with a zero low part.
 inline constexpr std::uint16_t format_version = 2;
@@ -81,7 +87,7 @@ public:
     std::int64_t dropped_total() const;
 
     /// The cell of a level, created on first sight. Throws groupfit::error when
-    /// the cap on levels would be exceeded.
+    /// the cap on levels would be exceeded or a real level is not finite.
     std::size_t cell_for(const level& lv, const limits& lim);
     /// The same from raw bytes, without building a level unless the cell is new:
     /// for integers `data` points to an int64, for reals to a double (normalised
@@ -90,11 +96,16 @@ public:
     std::size_t cell_for(level_kind kind, const void* data, std::size_t len, const limits& lim);
 
     /// Adds one row to a cell: values holds x1..xp then y (raw, finite); w > 0.
+    /// Throws groupfit::error when the cell's factor overflows (values around
+    /// 1e154 and beyond, whose squares are not finite doubles) or the model
+    /// would pass max_rows; the cell is then unspecified (the aggregate fails).
     void add_row(std::size_t cell, const double* values, double w);
-    void drop(drop_reason r) { ++dropped_[static_cast<int>(r)]; }
+    /// Counts a row left out; throws past max_rows dropped rows.
+    void drop(drop_reason r);
 
-    /// Adds the other summary's cells and counts. Throws when shapes differ or the
-    /// level cap would be exceeded.
+    /// Adds the other summary's cells and counts. Throws when shapes differ, the
+    /// level cap would be exceeded, a count would pass max_rows or a merged
+    /// factor overflows; after a throw this summary is unspecified.
     void merge(const summary& other, const limits& lim);
 
     /// Merges a model BLOB straight into this summary, without building a
@@ -129,6 +140,10 @@ private:
     std::size_t add_cell(const level& lv, std::string key, const limits& lim);
     void merge_factor(std::size_t into, const double* origin, const ddouble* factor,
                       std::int64_t rows, double log_w);
+    void merge_dropped(const std::array<std::int64_t, drop_reason_count>& other);
+    /// Throws when an entry of the cell's factor (or its log weight sum) is not
+    /// finite: the values were too large for the sums of squares.
+    void check_finite(std::size_t cell) const;
     template <class OnHeader, class OnCell>
     static void parse_blob(std::string_view blob, const limits& lim, OnHeader&& on_header,
                            OnCell&& on_cell);
@@ -137,7 +152,7 @@ private:
     bool weighted_ = false;
     std::vector<level> levels_;
     std::vector<std::int64_t> n_;
-    std::int64_t total_ = 0;  // rows over all cells, at most 2^53
+    std::int64_t total_ = 0;  // rows over all cells, at most max_rows
     std::vector<double> log_w_;
     std::vector<double> origin_;   // per cell: origin[p+1]
     std::vector<ddouble> factor_;  // per cell: d[p+2], rbar[(p+2)(p+1)/2]

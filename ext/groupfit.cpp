@@ -250,6 +250,12 @@ void fit_step(sqlite3_context* ctx, int argc, sqlite3_value** argv, bool weighte
             if (!numeric_arg(argv[lead + j], "covariate", j + 1, lead + j + 1, vals[j])) null_x = true;
         sqlite3_value* g = argv[lead - 1];
         const int gtype = sqlite3_value_type(g);
+        // Any value is a level, but a number must be finite (the model format
+        // stores finite numbers only); an error even in a row dropped for a NULL.
+        if (gtype == SQLITE_FLOAT && !std::isfinite(sqlite3_value_double(g))) [[unlikely]]
+            throw groupfit::error(arg_name("grouping", 0, lead) +
+                                  " must be finite when it is a number, got " +
+                                  (sqlite3_value_double(g) > 0 ? "Inf" : "-Inf"));
         if (null_w) return s.drop(groupfit::drop_reason::null_weight);
         if (null_y) return s.drop(groupfit::drop_reason::null_response);
         if (gtype == SQLITE_NULL) return s.drop(groupfit::drop_reason::null_group);

@@ -1,9 +1,17 @@
 // Unit tests of the summary state: merging, the BLOB format, bad BLOBs.
 #include <gtest/gtest.h>
 
+#include <array>
 #include <cmath>
+#include <cstdint>
+#include <cstring>
 #include <fstream>
+#include <functional>
+#include <limits>
 #include <random>
+#include <string>
+#include <utility>
+#include <vector>
 
 #include "error.hpp"
 #include "fit.hpp"
@@ -98,5 +106,220 @@ TEST(Summary, GoldenBlobsOfEveryFormatVersionStillLoad) {
                 const double a = std::get<double>(got.rows[r][c]), b = std::get<double>(want.rows[r][c]);
                 EXPECT_NEAR(a, b, 1e-12 * std::fabs(b)) << name << " row " << r;
             }
+    }
+}
+
+// ---------------------------------------------------------------------------
+// Overflow of the factor and of the row counts (findings of the fuzzers,
+// tests/fuzz/corpus/*/regress-*): every path that changes a summary checks
+// what it writes, so a model BLOB never holds a number its own reader rejects
+// and no count overflows int64.
+// ---------------------------------------------------------------------------
+namespace {
+const char* const overflow_text =
+    "values too large for a model: a sum of squares overflowed (rescale the response, weights or "
+    "covariates)";
+
+std::string error_of(const std::function<void()>& f) {
+    try {
+        f();
+    } catch (const error& e) {
+        return e.what();
+    }
+    return "<no error>";
+}
+
+// A version-2 model BLOB written field by field (the layout in
+// core/summary.cpp): no covariates, text levels, each cell with weight sum 2,
+// residual sum of squares 1 and mean 1.5 (origin 1, shifted mean 0.5).
+std::string forged_blob(const std::vector<std::pair<std::string, std::uint64_t>>& cells,
+                        const std::array<std::uint64_t, 5>& dropped) {
+    std::string b;
+    auto put = [&](auto v) {
+        char raw[sizeof v];
+        std::memcpy(raw, &v, sizeof v);  // little-endian host (x86-64, arm64)
+        b.append(raw, sizeof v);
+    };
+    b += std::string("GFm\x01", 4);
+    put(std::uint16_t(2)), put(std::uint16_t(0)), put(std::uint64_t(0));
+    put(std::uint32_t(0)), put(std::uint32_t(cells.size()));
+    for (auto d : dropped) put(d);
+    for (const auto& [label, rows] : cells) {
+        put(std::uint8_t(3)), put(std::uint32_t(label.size()));
+        b += label;
+        put(rows), put(0.0), put(1.0);
+        for (double v : {2.0, 0.0, 1.0, 0.0, 0.5, 0.0}) put(v);  // d0, d1, rbar01 as (hi, lo)
+    }
+    const std::uint64_t total = b.size() + 8;
+    std::memcpy(&b[8], &total, 8);
+    std::uint64_t h = 1469598103934665603ull;  // FNV-1a
+    for (unsigned char c : b) h = (h ^ c) * 1099511628211ull;
+    put(h);
+    return b;
+}
+constexpr std::uint64_t two53 = std::uint64_t(1) << 53;
+}  // namespace
+
+TEST(Summary, ForgedBlobBuilderMatchesTheFormat) {
+    // The builder above writes what serialize() writes: a one-cell model.
+    const summary s = summary::deserialize(forged_blob({{"a", 3}}, {1, 0, 0, 0, 2}), limits{});
+    EXPECT_EQ(s.rows_used(), 3);
+    EXPECT_EQ(s.dropped_total(), 3);
+    EXPECT_DOUBLE_EQ(s.cell_mean(0, 0), 1.5);
+    EXPECT_EQ(s.serialize(), forged_blob({{"a", 3}}, {1, 0, 0, 0, 2}));
+}
+
+// Finite values whose squares overflow fail at the row, in add_row; values
+// just below that still make a model that reads back.
+TEST(Summary, ValuesWhoseSquaresOverflowFailAtTheRow) {
+    limits lim;
+    {
+        summary s(0, false);
+        const double y1 = 1e308, y2 = -1e308;
+        s.add_row(s.cell_for(level::from_text("a"), lim), &y1, 1.0);
+        EXPECT_EQ(error_of([&] { s.add_row(s.cell_for(level::from_text("a"), lim), &y2, 1.0); }),
+                  overflow_text);
+    }
+    {
+        summary s(1, false);  // a covariate: 1e200 - (-1e200) squared
+        const double r1[] = {1e200, 1.0}, r2[] = {-1e200, 2.0};
+        s.add_row(s.cell_for(level::from_text("a"), lim), r1, 1.0);
+        EXPECT_EQ(error_of([&] { s.add_row(s.cell_for(level::from_text("a"), lim), r2, 1.0); }),
+                  overflow_text);
+    }
+    {
+        summary s(1, false);  // no huge square: y over a tiny covariate spread, 1e300 / 1e-10
+        const double r1[] = {1e-10, 1e300}, r2[] = {-1e-10, -1e300};
+        s.add_row(s.cell_for(level::from_text("a"), lim), r1, 1.0);
+        EXPECT_EQ(error_of([&] { s.add_row(s.cell_for(level::from_text("a"), lim), r2, 1.0); }),
+                  overflow_text);
+    }
+    {
+        summary s(0, true);  // the weight sum itself overflows
+        const double y1 = 1.0, y2 = 2.0;
+        s.add_row(s.cell_for(level::from_text("a"), lim), &y1, 1e308);
+        EXPECT_EQ(error_of([&] { s.add_row(s.cell_for(level::from_text("a"), lim), &y2, 1e308); }),
+                  overflow_text);
+    }
+    {
+        summary s(0, false);  // 1e150: squares near 1e300 are still finite
+        for (double y : {1e150, -1e150, 5e149}) s.add_row(s.cell_for(level::from_text("a"), lim), &y, 1.0);
+        const summary t = summary::deserialize(s.serialize(), lim);
+        EXPECT_EQ(t.rows_used(), 3);
+        EXPECT_NEAR(t.cell_mean(0, 0), 5e149 / 3, 1e135);
+    }
+}
+
+// The BLOB format stores finite numbers only, so a real level must be finite
+// (found by fuzzing: groupfit(y, 1e999) made a model no report could read).
+TEST(Summary, RealLevelsMustBeFinite) {
+    limits lim;
+    summary s(0, false);
+    const double inf = std::numeric_limits<double>::infinity();
+    EXPECT_EQ(error_of([&] { s.cell_for(level::from_real(inf), lim); }), "a real level must be finite, got Inf");
+    EXPECT_EQ(error_of([&] { s.cell_for(level::from_real(-inf), lim); }), "a real level must be finite, got -Inf");
+    EXPECT_EQ(error_of([&] { s.cell_for(level::from_real(std::nan("")), lim); }),
+              "a real level must be finite, got NaN");
+    EXPECT_EQ(s.cells(), 0u);
+    const double y = 1.0;
+    s.add_row(s.cell_for(level::from_real(1e308), lim), &y, 1.0);
+    s.add_row(s.cell_for(level::from_real(2.5), lim), &y, 1.0);
+    EXPECT_EQ(summary::deserialize(s.serialize(), lim).cells(), 2u);
+}
+
+// Two finite models can merge into an infinite one: merge and merge_blob
+// (what groupfit_merge runs) refuse it instead of writing Inf.
+TEST(Summary, MergeWhoseSumsOverflowFails) {
+    limits lim;
+    summary a(0, true);
+    const double y = 1.0;
+    a.add_row(a.cell_for(level::from_text("a"), lim), &y, 1e308);
+    const std::string blob = a.serialize();
+    summary by_merge = a;
+    EXPECT_EQ(error_of([&] { by_merge.merge(a, lim); }), overflow_text);
+    summary by_blob = a;
+    EXPECT_EQ(error_of([&] { by_blob.merge_blob(blob, lim); }), overflow_text);
+    // Another level is a separate cell: nothing overflows.
+    summary b(0, true);
+    b.add_row(b.cell_for(level::from_text("b"), lim), &y, 1e308);
+    b.merge_blob(blob, lim);
+    EXPECT_EQ(summary::deserialize(b.serialize(), lim).rows_used(), 2);
+}
+
+// At most 2^53 rows used and 2^53 rows dropped: decoding checks each count and
+// their sums, merging checks the merged sums before it changes anything.
+TEST(Summary, RowCountsStopAt2To53) {
+    limits lim;
+    const std::string out_of_range = "not a groupfit model: a row count is out of range";
+    const std::string impossible = "not a groupfit model: a cell has an impossible row count";
+    // Dropped counts: each, and their sum (which int64 would overflow at 2^62 + 2^62).
+    EXPECT_EQ(summary::deserialize(forged_blob({}, {two53, 0, 0, 0, 0}), lim).dropped_total(),
+              std::int64_t(two53));
+    EXPECT_EQ(summary::deserialize(forged_blob({}, {two53 / 2, 0, two53 / 2, 0, 0}), lim).dropped_total(),
+              std::int64_t(two53));
+    EXPECT_EQ(error_of([&] { summary::deserialize(forged_blob({}, {two53 + 1, 0, 0, 0, 0}), lim); }),
+              out_of_range);
+    EXPECT_EQ(error_of([&] { summary::deserialize(forged_blob({}, {two53, 0, 0, 0, 1}), lim); }),
+              out_of_range);
+    EXPECT_EQ(error_of([&] {
+                  summary::deserialize(forged_blob({}, {1ull << 62, 1ull << 62, 0, 0, 0}), lim);
+              }),
+              out_of_range);
+    EXPECT_EQ(error_of([&] { summary::deserialize(forged_blob({}, {~0ull, 2, 0, 0, 0}), lim); }),
+              out_of_range);
+    // Rows used: each cell, and their sum.
+    EXPECT_EQ(summary::deserialize(forged_blob({{"a", two53 / 2}, {"b", two53 / 2}}, {}), lim).rows_used(),
+              std::int64_t(two53));
+    EXPECT_EQ(error_of([&] { summary::deserialize(forged_blob({{"a", two53}, {"b", 1}}, {}), lim); }),
+              impossible);
+    EXPECT_EQ(error_of([&] {
+                  summary::deserialize(forged_blob({{"a", 1ull << 62}, {"b", 1ull << 62}}, {}), lim);
+              }),
+              impossible);
+
+    // Merging: up to 2^53 exactly, one more is an error (by merge and by merge_blob).
+    const std::string half_rows = forged_blob({{"a", two53 / 2}}, {});
+    const std::string half_plus = forged_blob({{"a", two53 / 2 + 1}}, {});
+    const std::string half_dropped = forged_blob({{"a", 1}}, {0, two53 / 2, 0, 0, 0});
+    const std::string half_dropped_plus = forged_blob({{"b", 1}}, {0, 0, 0, 0, two53 / 2 + 1});
+    {
+        summary s = summary::deserialize(half_rows, lim);
+        s.merge_blob(half_rows, lim);
+        EXPECT_EQ(s.rows_used(), std::int64_t(two53));
+        EXPECT_EQ(s.cell_rows(0), std::int64_t(two53));
+        EXPECT_EQ(summary::deserialize(s.serialize(), lim).rows_used(), std::int64_t(two53));
+    }
+    for (bool as_blob : {false, true}) {
+        const std::string how = as_blob ? "merge_blob" : "merge";
+        auto merged = [&](const std::string& into, const std::string& other) {
+            summary s = summary::deserialize(into, lim);
+            if (as_blob) s.merge_blob(other, lim);
+            else s.merge(summary::deserialize(other, lim), lim);
+            return s;
+        };
+        EXPECT_EQ(error_of([&] { merged(half_rows, half_plus); }),
+                  "the merged model would have more than 2^53 rows")
+            << how;
+        const summary d = merged(half_dropped, half_dropped);
+        EXPECT_EQ(d.dropped_total(), std::int64_t(two53)) << how;
+        EXPECT_EQ(d.dropped(drop_reason::null_group), std::int64_t(two53)) << how;
+        EXPECT_EQ(error_of([&] { merged(half_dropped, half_dropped_plus); }),
+                  "the merged model would count more than 2^53 dropped rows")
+            << how;
+    }
+
+    // The aggregate's own paths: a model at the cap takes no further row.
+    {
+        summary s = summary::deserialize(forged_blob({{"a", two53}}, {}), lim);
+        const double y = 1.0;
+        EXPECT_EQ(error_of([&] { s.add_row(s.cell_for(level::from_text("b"), lim), &y, 1.0); }),
+                  "the model would have more than 2^53 rows");
+        EXPECT_EQ(s.rows_used(), std::int64_t(two53));
+    }
+    {
+        summary s = summary::deserialize(forged_blob({}, {0, 0, two53, 0, 0}), lim);
+        EXPECT_EQ(error_of([&] { s.drop(drop_reason::null_response); }),
+                  "the model would count more than 2^53 dropped rows");
+        EXPECT_EQ(s.dropped_total(), std::int64_t(two53));
     }
 }

@@ -813,6 +813,15 @@ TEST(BadInput, NonNumericResponseAndCovariates) {
               "groupfit: covariate 1 (argument 3) must be a finite number, got -Inf");
     EXPECT_EQ(db.error("SELECT groupfit(1e999, 'a')"),
               "groupfit: response (argument 1) must be a finite number, got Inf");
+    // Any value is a level, but not an infinite number: the model could not
+    // store it (found by fuzzing: tests/fuzz/corpus/fuzz_sql/regress-infinite-level*).
+    EXPECT_EQ(db.error("SELECT groupfit(1, 1e999)"),
+              "groupfit: grouping (argument 2) must be finite when it is a number, got Inf");
+    EXPECT_EQ(db.error("SELECT groupfit(NULL, -1e999)"),
+              "groupfit: grouping (argument 2) must be finite when it is a number, got -Inf");
+    EXPECT_EQ(db.error("SELECT groupfit_weighted(1, 2, -1e999, 3)"),
+              "groupfit_weighted: grouping (argument 3) must be finite when it is a number, got -Inf");
+    EXPECT_EQ(db.scalar("SELECT level FROM groupfit_levels((SELECT groupfit(1, 1e308)))").s, "1e+308");
     // Long texts are cut to 40 characters in the message.
     EXPECT_EQ(db.error("SELECT groupfit('abcdefghijklmnopqrstuvwxyz0123456789ABCDEFGHIJ', 'a')"),
               "groupfit: response (argument 1) must be a number, got text "
@@ -844,6 +853,36 @@ TEST(BadInput, WeightedArgumentPositionsAndNegativeWeight) {
     // A negative weight is an error even when the response is NULL.
     EXPECT_EQ(db.error("SELECT groupfit_weighted(-2, NULL, 'a')"),
               "groupfit_weighted: weight (argument 1) must be >= 0, got -2");
+}
+
+// Finite values whose squares overflow a double (around 1e154 and beyond):
+// the aggregate fails at that row, and groupfit_merge fails when merged sums
+// overflow, instead of returning a model that every report would reject
+// (found by fuzzing: tests/fuzz/corpus/fuzz_sql/regress-huge-*, -merge-nonfinite).
+TEST(BadInput, ValuesWhoseSquaresOverflow) {
+    database db;
+    const std::string too_large =
+        "values too large for a model: a sum of squares overflowed (rescale the response, "
+        "weights or covariates)";
+    EXPECT_EQ(db.error("SELECT groupfit(column1, 'a') FROM (VALUES (1e308), (-1e308))"), "groupfit: " + too_large);
+    EXPECT_EQ(db.error("SELECT groupfit(1, 'a', column1) FROM (VALUES (1e200), (-1e200))"), "groupfit: " + too_large);
+    EXPECT_EQ(db.error("SELECT groupfit_weighted(column1, 1, 'a') FROM (VALUES (1e308), (1e308))"),
+              "groupfit_weighted: " + too_large);
+    // The error comes at the row (the fourth), not at the end: the bad text in
+    // the fifth row is never reached.
+    db.exec("CREATE TABLE h(y, g)");
+    db.exec("INSERT INTO h VALUES (1, 'a'), (2, 'a'), (1e300, 'b'), (-1e300, 'b'), ('oops', 'a')");
+    EXPECT_EQ(db.error("SELECT groupfit(y, g) FROM h"), "groupfit: " + too_large);
+    EXPECT_EQ(db.error("SELECT groupfit(y, g) FROM h GROUP BY g HAVING g = 'b'"), "groupfit: " + too_large);
+    // Large values whose squares stay finite make a model that reads back.
+    EXPECT_NEAR(db.scalar("SELECT mean FROM groupfit_levels((SELECT groupfit(column1, 'a') FROM "
+                          "(VALUES (1e150), (-1e150), (3e150))))").d,
+                1e150, 1e136);
+    // Each model is fine alone; merged, the weight sum overflows.
+    const std::string one = db.model("SELECT groupfit_weighted(1e308, 1, 'a')");
+    EXPECT_EQ(db.scalar("SELECT rows_used FROM groupfit_summary(?1)", {blob{one}}).i, 1);
+    EXPECT_EQ(db.error("SELECT groupfit_merge(m) FROM (SELECT ?1 m UNION ALL SELECT ?1)", {blob{one}}),
+              "groupfit_merge: " + too_large);
 }
 
 TEST(BadInput, TooFewArguments) {
@@ -973,6 +1012,20 @@ TEST(BadInput, OptionErrors) {
     EXPECT_EQ(err("order=a,zz"),
               "groupfit_coef: options: order names an unknown level 'zz' (levels: a, b, c)");
     EXPECT_EQ(err("order=a,a"), "groupfit_coef: options: order names level 'a' twice");
+    EXPECT_EQ(err("order=\"a"), "groupfit_coef: options: a double quote is not closed");
+    EXPECT_EQ(err("order=\"a\"b"), "groupfit_coef: options: unexpected text after a closing quote near 'b'");
+    // Errors in groupfit_contrast's weights name the weights argument, even
+    // where the parsing is shared with the options (found by fuzz_weights).
+    auto werr = [&](const std::string& weights) {
+        return db.error("SELECT * FROM groupfit_contrast(?1, ?2)", {blob{m}, weights});
+    };
+    EXPECT_EQ(werr("a=1, zz=-1"),
+              "groupfit_contrast: weights: a contrast names an unknown level 'zz' (levels: a, b, c)");
+    EXPECT_EQ(werr("\"a=1, b=-1"), "groupfit_contrast: weights: a double quote is not closed");
+    EXPECT_EQ(werr("\"a\"x=1, b=-1"),
+              "groupfit_contrast: weights: unexpected text after a closing quote near 'x'");
+    EXPECT_EQ(err("vs=zz", "groupfit_pairs"),
+              "groupfit_pairs: options: vs names an unknown level 'zz' (levels: a, b, c)");
     EXPECT_EQ(err("foo=1"),
               "groupfit_coef: options: unknown key 'foo' (keys: coding, base, order, conf, names, "
               "spacing, custom, ss, at, adjust, vs, side, terms, slopes, means, factor, by)");

@@ -476,6 +476,36 @@ TEST(CrossErrors, ClearMessages) {
               "options: factor names 'e', which is not a factor of the model (factors: a, b, c)");
     EXPECT_EQ(msg("names=a, b, c; factor=a; by=a", cross_pairs_report),
               "options: by= must name a factor other than factor=");
+    EXPECT_EQ(msg("names=a, b, c; order=north", cross_tests_report),
+              "options: order= applies to one-factor models; the levels of crossed factors are in "
+              "ascending order");
+    EXPECT_EQ(msg("names=a, b, c; coding=custom; custom=1,-1,0/0,1,-1", cross_coef_report),
+              "options: coding=custom applies to one-factor models; crossed factors take dummy, "
+              "effect, weighted_effect, helmert, reverse_helmert, successive or polynomial");
+    EXPECT_EQ(msg("names=a, b, c; factor=cell; by=b", cross_pairs_report),
+              "options: by= compares levels of factor= within levels of another factor; it cannot "
+              "be combined with factor=cell");
+    EXPECT_EQ(msg("names=a, b, c; by=b", [](const summary& m, const options& o) {
+                  return cross_contrast_report(m, o, "north=1, south=-1");
+              }),
+              "options: by= applies to groupfit_pairs");
+    EXPECT_EQ(msg("names=a, b, c; base=nowhere", cross_coef_report).rfind("options: base names an unknown level 'nowhere'", 0), 0u);
+    for (const char* o : {"slopes=varying", "means=weighted", "factor=", "by=", "terms=all"}) {
+        try {
+            parse_options(o);
+            ADD_FAILURE() << o << " accepted";
+        } catch (const error& e) {
+            EXPECT_EQ(std::string(e.what()).rfind("options: ", 0), 0u) << e.what();
+        }
+    }
+    EXPECT_STREQ([] {
+        try { parse_options("means=weighted"); } catch (const error& e) { return std::string(e.what()); }
+        return std::string();
+    }().c_str(), "options: means must be one of equal, proportional (not 'weighted')");
+    EXPECT_STREQ([] {
+        try { parse_options("slopes=varying"); } catch (const error& e) { return std::string(e.what()); }
+        return std::string();
+    }().c_str(), "options: slopes must be one of common, separate, cell (not 'varying')");
     EXPECT_THROW(parse_options("terms=all"), error);
     EXPECT_THROW(parse_options("slopes=varying"), error);
     EXPECT_THROW(parse_options("means=weighted"), error);
@@ -488,6 +518,48 @@ TEST(CrossErrors, ClearMessages) {
         level::from_blob(encode_cross({level::from_text("a"), level::from_text("b"), level::from_text("c")})), lim);
     EXPECT_THROW(check_same_factors(m, c), error);
     EXPECT_THROW(crossed_factors(m), error);
+}
+
+// The caps on a crossed model: level combinations and design columns.
+TEST(CrossErrors, CapsOnCombinationsAndColumns) {
+    limits lim;
+    lim.max_levels = 10000;
+    auto build_grid = [&](int la, int lb, bool diagonal) {
+        summary s(0, false);
+        double y = 1.0;
+        for (int i = 0; i < la; ++i)
+            for (int j = 0; j < lb; ++j) {
+                if (diagonal && j != i % lb) continue;
+                y += 0.5;
+                s.add_row(s.cell_for(level::from_blob(encode_cross({level::from_integer(i), level::from_integer(j)})), lim), &y, 1.0);
+            }
+        return s;
+    };
+    // 1001 x 1001 combinations from 1001 observed cells.
+    summary wide(0, false);
+    double y = 1.0;
+    for (int i = 0; i < 1001; ++i) {
+        y += 1;
+        wide.add_row(wide.cell_for(level::from_blob(encode_cross({level::from_integer(i), level::from_integer(i)})), lim), &y, 1.0);
+    }
+    try {
+        cross_tests_report(wide, parse_options(""));
+        ADD_FAILURE() << "no error";
+    } catch (const error& e) {
+        EXPECT_EQ(std::string(e.what()), "the crossed factors have more than 1000000 combinations of levels; "
+                                         "cross fewer factors or levels");
+    }
+    // 70 x 60 full factorial: 4200 design columns.
+    const summary big = build_grid(70, 60, true);
+    try {
+        cross_tests_report(big, parse_options(""));
+        ADD_FAILURE() << "no error";
+    } catch (const error& e) {
+        EXPECT_EQ(std::string(e.what()), "the model has 4200 design columns; the limit is 4000 (use "
+                                         "terms=main or terms=two_way, or fewer levels)");
+    }
+    // Main effects only fit.
+    EXPECT_NO_THROW(cross_tests_report(big, parse_options("terms=main")));
 }
 
 TEST(CrossEncoding, RoundTripsAndRejectsForeignBlobs) {

@@ -1519,6 +1519,10 @@ TEST(Crossed, OptionErrorsAndPlannerOr) {
     EXPECT_EQ(err(m, "names=p, q; by=r", "groupfit_pairs"),
               "groupfit_pairs: options: by names 'r', which is not a factor of the model (factors: p, q)");
     EXPECT_EQ(err(plain, "by=a", "groupfit_pairs"), "groupfit_pairs: options: by= needs crossed factors (groupfit_cross)");
+    EXPECT_EQ(err(plain, "factor=a", "groupfit_pairs"),
+              "groupfit_pairs: options: factor= needs crossed factors (groupfit_cross)");
+    EXPECT_EQ(db.error("SELECT * FROM groupfit_contrast(?1, 5)", {blob{plain}}),
+              "groupfit_contrast: weights must be text such as 'a=1, b=-1', got an integer");
     EXPECT_EQ(err(plain, "terms=main", "groupfit_tests"),
               "groupfit_tests: options: terms= applies to crossed factors (groupfit_cross); this model has one grouping");
     EXPECT_EQ(err(plain, "slopes=separate", "groupfit_tests"),

@@ -787,16 +787,15 @@ std::vector<value> test_row(const std::string& name, const char* method, int ss,
 
 /// SS and df of the homogeneity-of-slopes test: the full model against the
 /// model with every covariate's slope also varying by level of the first
-/// factor. Returns false when there is nothing to test.
+/// factor (df 0 when there is nothing to test).
 struct homogeneity {
     double ss = 0, df = 0, nominal = 0, sse = 0, dfr = 0;
 };
 
-homogeneity slopes_test(const summary& s, const options& o, int crossed) {
-    options wider = o;
+homogeneity slopes_test(const engine& small) {
+    options wider = small.o;
     wider.slopes = slopes_kind::separate;
-    wider.has_terms = crossed > 0 && o.has_terms;
-    const engine small(s, o, crossed), big(s, wider, crossed);
+    const engine big(small.s, wider, small.plain ? 0 : small.K);
     homogeneity h;
     h.df = double(big.full.rank - small.full.rank);
     h.nominal = double(big.ncols - small.ncols);
@@ -876,7 +875,7 @@ table cross_tests_report(const summary& s, const options& o) {
                                   std::max(0.0, a.sse - b.sse), sse, dfr, sst));
     }
     if (e.p > 0 && o.slopes == slopes_kind::common) {
-        const homogeneity h = slopes_test(s, o, crossed);
+        const homogeneity h = slopes_test(e);
         const std::string name =
             e.fname[0] + " \u00d7 " + (e.p == 1 ? e.cname[0] : std::string("covariates"));
         t.rows.push_back(test_row(name, "homogeneity_of_slopes", 0, h.df, h.nominal, h.ss, h.sse,

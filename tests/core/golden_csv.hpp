@@ -1,6 +1,7 @@
 // Shared helpers of the golden-file tests (test_oracle, test_compare): reading
-// CSV files (RFC 4180), numbers and text, and the MD5 digest (RFC 1321) with
-// which a golden file's header pins the data file it was computed from.
+// CSV files (RFC 4180), numbers and text, the golden files' header lines, and
+// the MD5 digest (RFC 1321) with which a header pins the data file it was
+// computed from.
 #pragma once
 
 #include <cctype>
@@ -105,6 +106,65 @@ inline std::vector<std::string> split(const std::string& s, const std::string& s
 }
 
 inline bool starts_with(const std::string& s, const std::string& p) { return s.rfind(p, 0) == 0; }
+
+// ---------------------------------------------------------------------------
+// The two '#' lines that open a golden file: the generation line, then
+// "data: PATH (md5 X); model: y ~ g + x1 + ...; analytic weights: w;
+// rows used: N; levels: a b c" (parts optional, in any order).
+// ---------------------------------------------------------------------------
+
+struct golden_header {
+    std::string header1, header2;  // the two comment lines as written
+    std::string data_path, md5, response, group, weight;
+    std::vector<std::string> covariates, levels;
+    long rows_used = -1;
+    std::size_t comment_lines = 0;  // '#' lines before the CSV (for line numbers)
+};
+
+/// Splits a golden file's text into its header (parsed into h) and the CSV
+/// text that follows; returns an empty string, or what is wrong.
+inline std::string parse_golden_header(const std::string& body, golden_header& h, std::string& csv) {
+    std::vector<std::string> comments;
+    std::istringstream in(body);
+    std::string line;
+    while (std::getline(in, line)) {
+        if (!line.empty() && line.back() == '\r') line.pop_back();
+        if (starts_with(line, "#")) comments.push_back(line);
+        else csv += line + "\n";
+    }
+    if (comments.size() < 2) return "expected two '#' header lines";
+    h.comment_lines = comments.size();
+    h.header1 = comments[0];
+    h.header2 = comments[1];
+    for (const std::string& part0 : split(comments[1].substr(1), ";")) {
+        const std::string part = trim(part0);
+        if (starts_with(part, "data: ")) {
+            std::string d = part.substr(6);
+            const auto md5at = d.find(" (md5 ");
+            if (md5at != std::string::npos) {
+                h.md5 = d.substr(md5at + 6);
+                if (!h.md5.empty() && h.md5.back() == ')') h.md5.pop_back();
+                d = d.substr(0, md5at);
+            }
+            h.data_path = trim(d);
+        } else if (starts_with(part, "model: ")) {
+            const auto lr = split(part.substr(7), "~");
+            if (lr.size() != 2) return "cannot parse the model in '" + part + "'";
+            h.response = trim(lr[0]);
+            const auto terms = split(lr[1], "+");
+            h.group = trim(terms[0]);
+            for (std::size_t i = 1; i < terms.size(); ++i) h.covariates.push_back(trim(terms[i]));
+        } else if (starts_with(part, "analytic weights: ")) {
+            h.weight = trim(part.substr(18));
+        } else if (starts_with(part, "rows used: ")) {
+            h.rows_used = std::strtol(part.c_str() + 11, nullptr, 10);
+        } else if (starts_with(part, "levels: ")) {
+            for (const auto& l : split(part.substr(8), " "))
+                if (!l.empty()) h.levels.push_back(l);
+        }
+    }
+    return {};
+}
 
 // ---------------------------------------------------------------------------
 // MD5 (RFC 1321)

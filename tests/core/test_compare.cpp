@@ -98,10 +98,8 @@ struct golden_row {
     int line = 0;
 };
 
-struct golden_file {
-    std::string name, header1, data_path, md5, response, group, weight;
-    std::vector<std::string> covariates, levels;
-    long rows_used = -1;
+struct golden_file : golden_header {
+    std::string name;
     std::vector<golden_row> rows;
 };
 
@@ -110,47 +108,9 @@ std::string load_golden(const fs::path& path, golden_file& g, bool needs_data) {
     if (!read_file(path, body)) return "cannot read " + path.string();
     g.name = path.stem().string();
     std::string csv;
-    std::vector<std::string> comments;
-    {
-        std::istringstream in(body);
-        std::string line;
-        while (std::getline(in, line)) {
-            if (!line.empty() && line.back() == '\r') line.pop_back();
-            if (starts_with(line, "#")) comments.push_back(line);
-            else csv += line + "\n";
-        }
-    }
-    if (comments.size() < 2) return "expected two '#' header lines";
-    g.header1 = comments[0];
-    for (const std::string& part0 : split(comments[1].substr(1), ";")) {
-        const std::string part = trim(part0);
-        if (starts_with(part, "data: ")) {
-            std::string d = part.substr(6);
-            const auto md5at = d.find(" (md5 ");
-            if (md5at != std::string::npos) {
-                g.md5 = d.substr(md5at + 6);
-                if (!g.md5.empty() && g.md5.back() == ')') g.md5.pop_back();
-                d = d.substr(0, md5at);
-            }
-            g.data_path = trim(d);
-        } else if (starts_with(part, "model: ")) {
-            const auto lr = split(part.substr(7), "~");
-            if (lr.size() != 2) return "cannot parse the model in '" + part + "'";
-            g.response = trim(lr[0]);
-            const auto terms = split(lr[1], "+");
-            g.group = trim(terms[0]);
-            for (std::size_t i = 1; i < terms.size(); ++i) g.covariates.push_back(trim(terms[i]));
-        } else if (starts_with(part, "analytic weights: ")) {
-            g.weight = trim(part.substr(18));
-        } else if (starts_with(part, "rows used: ")) {
-            g.rows_used = std::strtol(part.c_str() + 11, nullptr, 10);
-        } else if (starts_with(part, "levels: ")) {
-            for (const auto& l : split(part.substr(8), " "))
-                if (!l.empty()) g.levels.push_back(l);
-        }
-    }
+    if (std::string e = parse_golden_header(body, g, csv); !e.empty()) return e;
     if (needs_data && (g.data_path.empty() || g.response.empty() || g.group.empty() || g.levels.empty()))
-        return "header line 2 lacks data:, model: or levels: " + comments[1];
+        return "header line 2 lacks data:, model: or levels: " + g.header2;
 
     const auto rows = parse_csv(csv);
     const std::vector<std::string> want = {"dataset", "report", "options", "weights",
@@ -165,7 +125,7 @@ std::string load_golden(const fs::path& path, golden_file& g, bool needs_data) {
             return "data row " + std::to_string(r) + " has " + std::to_string(f.size()) + " fields";
         golden_row gr{f[1].text, f[2].text, f[3].text, f[4].text, f[5].text,
                       f[6].text, f[7].text, f[8].text, f[10].text};
-        gr.line = int(r + comments.size() + 1);
+        gr.line = int(r + g.comment_lines + 1);
         const std::string expect_name = g.name.substr(std::string("pairs_").size());
         if (f[0].text != expect_name)
             return "line " + std::to_string(gr.line) + " names dataset '" + f[0].text + "'";

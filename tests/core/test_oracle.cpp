@@ -72,14 +72,8 @@ struct golden_row {
     int line = 0;
 };
 
-struct golden_file {
+struct golden_file : golden_header {
     std::string dataset;
-    std::string header1;      // generation line (R version)
-    std::string data_path;    // relative to the repository root
-    std::string md5;          // empty unless recorded
-    std::string response, group, weight;
-    std::vector<std::string> covariates;
-    long rows_used = -1;
     std::vector<golden_row> rows;
 };
 
@@ -89,42 +83,9 @@ std::string load_golden(const fs::path& path, golden_file& g) {
     if (!read_file(path, body)) return "cannot read " + path.string();
     g.dataset = path.stem().string();
     std::string csv;
-    std::istringstream in(body);
-    std::string line;
-    std::vector<std::string> comments;
-    while (std::getline(in, line)) {
-        if (!line.empty() && line.back() == '\r') line.pop_back();
-        if (starts_with(line, "#")) comments.push_back(line);
-        else csv += line + "\n";
-    }
-    if (comments.size() < 2) return "expected two '#' header lines";
-    g.header1 = comments[0];
-    for (const std::string& part0 : split(comments[1].substr(1), ";")) {
-        const std::string part = trim(part0);
-        if (starts_with(part, "data: ")) {
-            std::string d = part.substr(6);
-            const auto md5at = d.find(" (md5 ");
-            if (md5at != std::string::npos) {
-                g.md5 = d.substr(md5at + 6);
-                if (!g.md5.empty() && g.md5.back() == ')') g.md5.pop_back();
-                d = d.substr(0, md5at);
-            }
-            g.data_path = trim(d);
-        } else if (starts_with(part, "model: ")) {
-            const auto lr = split(part.substr(7), "~");
-            if (lr.size() != 2) return "cannot parse the model in '" + part + "'";
-            g.response = trim(lr[0]);
-            const auto terms = split(lr[1], "+");
-            g.group = trim(terms[0]);
-            for (std::size_t i = 1; i < terms.size(); ++i) g.covariates.push_back(trim(terms[i]));
-        } else if (starts_with(part, "analytic weights: ")) {
-            g.weight = trim(part.substr(18));
-        } else if (starts_with(part, "rows used: ")) {
-            g.rows_used = std::strtol(part.c_str() + 11, nullptr, 10);
-        }
-    }
+    if (std::string e = parse_golden_header(body, g, csv); !e.empty()) return e;
     if (g.data_path.empty() || g.response.empty() || g.group.empty())
-        return "header line 2 lacks 'data:' or 'model:': " + comments[1];
+        return "header line 2 lacks 'data:' or 'model:': " + g.header2;
 
     const auto rows = parse_csv(csv);
     if (rows.empty()) return "no CSV header";
@@ -138,7 +99,7 @@ std::string load_golden(const fs::path& path, golden_file& g) {
         if (f.size() != 7)
             return "data row " + std::to_string(r) + " has " + std::to_string(f.size()) + " fields";
         golden_row gr{f[1].text, f[2].text, f[3].text, f[4].text, f[5].text, f[6].text};
-        gr.line = int(r) + int(comments.size()) + 1;
+        gr.line = int(r) + int(g.comment_lines) + 1;
         if (f[0].text != g.dataset)
             return "row " + std::to_string(r) + " names dataset '" + f[0].text + "'";
         gr.numeric = parse_double(gr.text, gr.value);

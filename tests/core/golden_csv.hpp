@@ -1,4 +1,4 @@
-// Shared helpers of the golden-file tests (test_oracle, test_compare): reading
+// Shared helpers of the golden-file tests (test_oracle, test_compare, test_cross): reading
 // CSV files (RFC 4180), numbers and text, the golden files' header lines, and
 // the MD5 digest (RFC 1321) with which a header pins the data file it was
 // computed from.

@@ -23,6 +23,7 @@
 #include <string>
 #include <vector>
 
+#include "golden_csv.hpp"
 #include "error.hpp"
 #include "factorial.hpp"
 #include "fit.hpp"
@@ -34,16 +35,10 @@ using namespace groupfit;
 
 namespace {
 
+using gf_golden::split;
+
 const std::string oracle_dir = std::string(GROUPFIT_SOURCE_DIR) + "/tests/oracle";
 
-std::vector<std::string> split(const std::string& line, char sep) {
-    std::vector<std::string> out;
-    std::string cur;
-    std::istringstream in(line);
-    while (std::getline(in, cur, sep)) out.push_back(cur);
-    if (!line.empty() && line.back() == sep) out.emplace_back();
-    return out;
-}
 
 struct dataset {
     std::vector<std::string> header;
@@ -56,9 +51,9 @@ dataset read_data(const std::string& name) {
     dataset d;
     std::string line;
     std::getline(in, line);
-    d.header = split(line, ',');
+    d.header = split(line, ",");
     while (std::getline(in, line))
-        if (!line.empty()) d.rows.push_back(split(line, ','));
+        if (!line.empty()) d.rows.push_back(split(line, ","));
     return d;
 }
 
@@ -74,7 +69,7 @@ std::vector<golden_row> read_golden(const std::string& name) {
     std::string line;
     while (std::getline(in, line)) {
         if (line.empty() || line[0] == '#' || line.rfind("case,", 0) == 0) continue;
-        auto f = split(line, ',');
+        auto f = split(line, ",");
         // NA: R has no value (a test with no degrees of freedom): groupfit gives NULL.
         out.push_back({f.at(1), f.at(2), f.at(3),
                        f.at(4) == "NA" ? std::numeric_limits<double>::quiet_NaN() : std::stod(f.at(4))});
@@ -188,7 +183,7 @@ std::string r_coef_name(const std::string& term, const std::string& label) {
     for (std::size_t pos; (pos = t.find(times)) != std::string::npos; t = t.substr(pos + times.size()))
         terms.push_back(t.substr(0, pos));
     terms.push_back(t);
-    labels = split(label, '/');
+    labels = split(label, "/");
     std::string out;
     for (std::size_t i = 0; i < terms.size(); ++i)
         out += (i ? ":" : "") + terms[i] + (i < labels.size() ? labels[i] : "");
@@ -256,7 +251,7 @@ void check_case(const case_spec& cs) {
         const table t = cross_pairs_report(s, parse_options(base));
         for (const golden_row& r : g) {
             if (r.what != "pair_equal") continue;
-            const auto ab = split(r.label, '|');
+            const auto ab = split(r.label, "|");
             const auto* row = find_row(t, "level_a", ab[0], "level_b", ab[1]);
             ASSERT_NE(row, nullptr) << "no pair " << r.label;
             const double got = as_double((*row)[column(t, r.stat)]);
@@ -441,7 +436,7 @@ TEST(CrossProperties, InvariantToLevelOrderAndRowOrder) {
     for (const auto& row : a.rows) {
         std::string label = as_text(row[column(a, "level")]);
         std::string renamed;
-        for (const auto& part : split(label, '/'))
+        for (const auto& part : split(label, "/"))
             renamed += (renamed.empty() ? "" : "/") + rename.at(part);
         std::string term = as_text(row[column(a, "term")]);
         if (term == "a \u00d7 b") continue;  // cell labels swap order with the renaming; checked below

@@ -56,11 +56,47 @@ T include_row(int k, T* d, T* rbar, T* row, T w, int first) {
 template double include_row<double>(int, double*, double*, double*, double, int);
 template ddouble include_row<ddouble>(int, ddouble*, ddouble*, ddouble*, ddouble, int);
 
+void factor_of_gram(int k, const ddouble* g, ddouble* d, ddouble* rbar, ddouble* a) {
+    // a: the working copy, normalised (the running sums of add_row keep their
+    // low parts unnormalised only in the sense of quick_two_sum's precondition
+    // being met approximately; two_sum makes them exact pairs again).
+    const int n = k * (k + 1) / 2;
+    for (int e = 0; e < n; ++e) a[e] = dd::two_sum(g[e].hi, g[e].lo);
+    for (int i = 0; i < k; ++i) {
+        const ddouble piv = a[gram_index(k, i, i)];
+        const ddouble own = dd::two_sum(g[gram_index(k, i, i)].hi, g[gram_index(k, i, i)].lo);
+        ddouble* r = i + 1 < k ? rbar + rbar_index(k, i, i + 1) : nullptr;
+        if (!(piv.hi > 0x1p-96 * own.hi)) {  // also when own is 0 or piv is negative
+            d[i] = ddouble(0.0);
+            for (int j = i + 1; j < k; ++j) r[j - i - 1] = ddouble(0.0);
+            continue;
+        }
+        d[i] = piv;
+        const ddouble inv = ddouble(1.0) / piv;
+        for (int j = i + 1; j < k; ++j) r[j - i - 1] = a[gram_index(k, i, j)] * inv;
+        // The trailing matrix loses this column: a(j, l) -= rbar(i, j) a(i, l).
+        for (int j = i + 1; j < k; ++j) {
+            const ddouble rij = r[j - i - 1];
+            for (int l = j; l < k; ++l) a[gram_index(k, j, l)] -= rij * a[gram_index(k, i, l)];
+        }
+    }
+}
+
+void gram_of_factor(int k, const ddouble* d, const ddouble* rbar, ddouble* g) {
+    auto rb = [&](int l, int i) { return l == i ? ddouble(1.0) : rbar[rbar_index(k, l, i)]; };
+    for (int i = 0; i < k; ++i)
+        for (int j = i; j < k; ++j) {
+            ddouble acc(0.0);
+            for (int l = 0; l <= i; ++l)
+                if (d[l].hi != 0.0) acc += d[l] * rb(l, i) * rb(l, j);
+            g[gram_index(k, i, j)] = acc;
+        }
+}
+
 }  // namespace detail
 
-summary::summary(int covariates, bool weighted) : p_(covariates), weighted_(weighted) {
-    scratch_.resize(p_ + 2);
-}
+summary::summary(int covariates, bool weighted)
+    : p_(covariates), weighted_(weighted), scratch_(2 * (static_cast<std::size_t>(covariates) + 2)) {}
 
 std::int64_t summary::rows_used() const { return total_; }
 
@@ -99,15 +135,12 @@ inline std::uint64_t nonfinite_bit(double x) {
 [[noreturn, gnu::cold, gnu::noinline]] void throw_too_many_rows() {
     throw error("the model would have more than 2^53 rows");
 }
-}  // namespace
 
-void summary::check_finite(std::size_t c) const {
-    // Both parts of every double-double: an overflow can leave a finite high
-    // part with a NaN low part.
+/// Throws when a value of n double-doubles (either part) or x is not finite:
+/// the values were too large for the sums of squares.
+void check_finite(const ddouble* f, std::size_t n, double x) {
     // Two entries per step, four independent lanes (the compiler vectorises it).
-    const ddouble* f = cell_d(c);
-    const std::size_t n = stride();
-    std::uint64_t a = nonfinite_bit(log_w_[c]), b = 0, e = 0, g = 0;
+    std::uint64_t a = nonfinite_bit(x), b = 0, e = 0, g = 0;
     std::size_t i = 0;
     for (; i + 1 < n; i += 2) {
         a |= nonfinite_bit(f[i].hi);
@@ -118,6 +151,8 @@ void summary::check_finite(std::size_t c) const {
     if (i < n) a |= nonfinite_bit(f[i].hi) | nonfinite_bit(f[i].lo);
     if ((a | b | e | g) >> 63) [[unlikely]] throw_overflow();
 }
+
+}  // namespace
 
 double summary::cell_mean(std::size_t c, int j) const {
     return (ddouble(cell_origin(c)[j]) + cell_rbar(c)[detail::rbar_index(p_ + 2, 0, j + 1)]).value();
@@ -140,16 +175,28 @@ std::size_t summary::add_cell(const level& lv, std::string key, const limits& li
         n_.push_back(0);
         log_w_.push_back(0.0);
         origin_.resize(c * (p_ + 1) + (p_ + 1), 0.0);
-        factor_.resize(c * stride() + stride(), ddouble());
+        // A new cell of a summary that holds matrices is stale: its factor is
+        // made (from its matrix) when first read. One read from a BLOB holds
+        // factors only, and the decoder fills them in.
+        if (gram_ok_)
+            gram_.resize(c * stride() + stride(), ddouble());
+        else
+            factor_.resize(c * stride() + stride(), ddouble());
+        stale_.push_back(0);
         index_.emplace(std::move(key), c);
     } catch (...) {
         if (levels_.size() > c) levels_.pop_back();
         if (n_.size() > c) n_.pop_back();
         if (log_w_.size() > c) log_w_.pop_back();
         origin_.resize(c * (p_ + 1));
-        factor_.resize(c * stride());
+        if (gram_ok_)
+            gram_.resize(c * stride());
+        else
+            factor_.resize(c * stride());
+        if (stale_.size() > c) stale_.pop_back();
         throw;
     }
+    if (gram_ok_) mark_stale(c);
     return c;
 }
 
@@ -202,57 +249,92 @@ std::size_t summary::cell_for(level_kind kind, const void* data, std::size_t len
 
 void summary::add_row(std::size_t c, const double* values, double w) {
     if (total_ >= max_rows) [[unlikely]] throw_too_many_rows();
+    if (!gram_ok_) [[unlikely]] ensure_gram();
     const int k = p_ + 2;
     double* o = origin(c);
     if (n_[c] == 0)
         for (int j = 0; j <= p_; ++j) o[j] = values[j];
-    ddouble* row = scratch_.data();
-    // Column 0 is the constant 1: the general step with x_i = 1 reduces to a
-    // running-mean update (d0 += w; r += (w / d0) (x - r)), done here directly.
-    ddouble* dc = d(c);
-    ddouble* r0 = rbar(c);
-    const ddouble d0 = dc[0];
-    const ddouble dp = d0 + ddouble(w);
-    const ddouble inv = ddouble(1.0) / dp;
-    const ddouble sbar = inv * w;
-    dc[0] = dp;
-    for (int j = 1; j < k; ++j) {
-        const ddouble xj = dd::two_diff(values[j - 1], o[j - 1]) - r0[j - 1];
-        row[j] = xj;
-        r0[j - 1] = r0[j - 1] + sbar * xj;
-    }
-    if (d0.hi != 0.0)  // the first row of a cell leaves nothing for the others
-        detail::include_row<ddouble>(k, dc, r0, row, d0 * inv * w, 1);
+    // z = (1, x - origin) exactly, as double-doubles; u = w z.
+    ddouble* z = scratch_.data();
+    ddouble* u = weighted_ ? z + k : z;
+    z[0] = ddouble(1.0);
+    for (int j = 1; j < k; ++j) z[j] = dd::two_diff(values[j - 1], o[j - 1]);
+    if (weighted_)
+        for (int j = 0; j < k; ++j) u[j] = z[j] * w;
+    ddouble* g = gram(c);
+    for (int i = 0, e = 0; i < k; ++i)
+        for (int j = i; j < k; ++j, ++e) g[e] += u[i] * z[j];
     ++n_[c];
     ++total_;
     if (weighted_) log_w_[c] += std::log(w);
+    mark_stale(c);
     // Finite values whose squares overflow (around 1e154 and beyond) make the
-    // factor infinite or NaN: an error at this row, never a model that its own
-    // reports would reject.
-    check_finite(c);
+    // sums infinite or NaN: an error at this row, never a model that its own
+    // reports would reject. The diagonal bounds the rest of the matrix
+    // (|u_i z_j| <= max(u_i z_i, u_j z_j)), so it is the one checked per row;
+    // settle checks every factor entry as well.
+    std::uint64_t bad = nonfinite_bit(log_w_[c]);
+    for (int i = 0; i < k; ++i) {
+        const ddouble& v = g[detail::gram_index(k, i, i)];
+        bad |= nonfinite_bit(v.hi) | nonfinite_bit(v.lo);
+    }
+    if (bad >> 63) [[unlikely]] throw_overflow();
 }
 
-void summary::merge_factor(std::size_t into, const double* fo, const ddouble* fd,
-                           std::int64_t rows, double log_w) {
+void summary::ensure_gram() {
+    if (gram_ok_) return;
+    const int k = p_ + 2;
+    std::vector<ddouble> g(cells() * stride());
+    for (std::size_t c = 0; c < cells(); ++c) {
+        const ddouble* f = &factor_[c * stride()];
+        detail::gram_of_factor(k, f, f + k, &g[c * stride()]);
+    }
+    gram_ = std::move(g);
+    gram_ok_ = true;
+}
+
+void summary::settle() const {
+    if (stale_count_ == 0) return;
+    // Only a summary that holds matrices has stale cells.
+    const int k = p_ + 2;
+    if (factor_.size() < cells() * stride()) factor_.resize(cells() * stride());
+    std::vector<ddouble> work(stride());
+    for (std::size_t c = 0; c < cells() && stale_count_ != 0; ++c) {
+        if (!stale_[c]) continue;
+        ddouble* f = &factor_[c * stride()];
+        detail::factor_of_gram(k, &gram_[c * stride()], f, f + k, work.data());
+        check_finite(f, stride(), log_w_[c]);  // the cell stays stale if it throws
+        stale_[c] = 0;
+        --stale_count_;
+    }
+}
+
+void summary::merge_gram(std::size_t into, const double* fo, const ddouble* fg,
+                         std::int64_t rows, double log_w) {
     if (rows > max_rows - total_) throw error("the merged model would have more than 2^53 rows");
     const int k = p_ + 2;
     double* o = origin(into);
-    const ddouble* fr = fd + k;
-    if (n_[into] == 0)
-        for (int j = 0; j <= p_; ++j) o[j] = fo[j];
-    ddouble* row = scratch_.data();
-    for (int i = 0; i < k; ++i) {
-        if (fd[i] == ddouble(0.0)) continue;
-        for (int j = 0; j < k; ++j)
-            row[j] = j < i ? ddouble(0.0) : j == i ? ddouble(1.0) : fr[detail::rbar_index(k, i, j)];
-        if (i == 0)  // the first row carries the means: move them to our origin
-            for (int j = 1; j < k; ++j) row[j] += dd::two_diff(fo[j - 1], o[j - 1]);
-        detail::include_row<ddouble>(k, d(into), rbar(into), row, fd[i], i);
+    ddouble* g = gram(into);
+    if (n_[into] == 0) {
+        std::copy(fo, fo + p_ + 1, o);
+        std::copy(fg, fg + stride(), g);
+    } else {
+        // Move fg to our origin: z' = z + delta with delta_0 = 0 (the constant
+        // column), so g'(i,j) = g(i,j) + delta_i g(0,j) + delta_j g(0,i)
+        // + delta_i delta_j g(0,0).
+        ddouble* delta = scratch_.data();
+        delta[0] = ddouble(0.0);
+        for (int j = 1; j < k; ++j) delta[j] = dd::two_diff(fo[j - 1], o[j - 1]);
+        const ddouble w = fg[0];
+        for (int i = 0, e = 0; i < k; ++i)
+            for (int j = i; j < k; ++j, ++e)
+                g[e] += fg[e] + delta[i] * fg[j] + delta[j] * fg[i] + delta[i] * delta[j] * w;
     }
     n_[into] += rows;
     total_ += rows;
     log_w_[into] += log_w;
-    check_finite(into);  // two finite models can merge into an infinite one
+    mark_stale(into);
+    check_finite(g, stride(), log_w_[into]);  // two finite models can merge into an infinite one
 }
 
 void summary::merge(const summary& other, const limits& lim) {
@@ -261,11 +343,21 @@ void summary::merge(const summary& other, const limits& lim) {
                     std::to_string(other.p_));
     if (other.weighted_ != weighted_)
         throw error("models differ in kind: one is weighted (groupfit_weighted) and one is not");
+    if (&other == this) {
+        const summary copy = other;
+        merge(copy, lim);
+        return;
+    }
+    ensure_gram();
+    const int k = p_ + 2;
+    std::vector<ddouble> tmp(other.gram_ok_ ? 0 : stride());
     for (std::size_t c = 0; c < other.cells(); ++c) {
         std::string key = other.levels_[c].key();
         auto it = index_.find(key);
         std::size_t into = it != index_.end() ? it->second : add_cell(other.levels_[c], key, lim);
-        merge_factor(into, other.cell_origin(c), other.cell_d(c), other.n_[c], other.log_w_[c]);
+        const ddouble* og = other.gram_ok_ ? &other.gram_[c * stride()] : tmp.data();
+        if (!other.gram_ok_) detail::gram_of_factor(k, other.cell_d(c), other.cell_rbar(c), tmp.data());
+        merge_gram(into, other.cell_origin(c), og, other.n_[c], other.log_w_[c]);
     }
     merge_dropped(other.dropped_);
 }
@@ -330,8 +422,7 @@ struct reader {
 }  // namespace
 
 std::string summary::serialize() const {
-    // add_row and merge check every change; this keeps any other path honest.
-    for (std::size_t c = 0; c < cells(); ++c) check_finite(c);
+    settle();  // checks every factor it computes; a BLOB's factors were checked when read
     std::string out;
     const int k = p_ + 2;
     out.reserve(72 + cells() * (32 + 8 * (p_ + 1) + 16 * stride()));
@@ -358,7 +449,7 @@ std::string summary::serialize() const {
         put<std::uint64_t>(out, static_cast<std::uint64_t>(n_[c]));
         put<double>(out, log_w_[c]);
         for (int j = 0; j <= p_; ++j) put<double>(out, cell_origin(c)[j]);
-        const ddouble* v = cell_d(c);
+        const ddouble* v = &factor_[c * stride()];
         for (std::size_t j = 0; j < stride(); ++j) {
             put<double>(out, v[j].hi);
             put<double>(out, v[j].lo);
@@ -481,6 +572,7 @@ summary summary::deserialize(std::string_view blob, const limits& lim) {
         blob, lim,
         [&](int p, bool weighted, const std::array<std::int64_t, drop_reason_count>& dropped) {
             s = summary(p, weighted);
+            s.gram_ok_ = false;  // factors only, until something is added (ensure_gram)
             s.dropped_ = dropped;
         },
         [&](level_kind kind, const void* data, std::size_t len, std::int64_t rows, double log_w,
@@ -492,7 +584,7 @@ summary summary::deserialize(std::string_view blob, const limits& lim) {
             s.total_ += rows;
             s.log_w_[cell] = log_w;
             std::copy(origin, origin + s.p_ + 1, s.origin(cell));
-            std::copy(fac, fac + s.stride(), s.d(cell));
+            std::copy(fac, fac + s.stride(), &s.factor_[cell * s.stride()]);
         });
     return s;
 }
@@ -500,6 +592,7 @@ summary summary::deserialize(std::string_view blob, const limits& lim) {
 void summary::merge_blob(std::string_view blob, const limits& lim) {
     // Cells of this BLOB already merged, to reject a level that appears twice.
     std::vector<std::uint8_t> seen;
+    std::vector<ddouble> tmp;  // a cell's matrix, formed from its stored factor
     parse_blob(
         blob, lim,
         [&](int p, bool weighted, const std::array<std::int64_t, drop_reason_count>& dropped) {
@@ -508,6 +601,8 @@ void summary::merge_blob(std::string_view blob, const limits& lim) {
                             std::to_string(p));
             if (weighted != weighted_)
                 throw error("models differ in kind: one is weighted (groupfit_weighted) and one is not");
+            ensure_gram();
+            tmp.resize(stride());
             merge_dropped(dropped);
             seen.assign(cells(), 0);
         },
@@ -517,7 +612,8 @@ void summary::merge_blob(std::string_view blob, const limits& lim) {
             if (cell >= seen.size()) seen.resize(cell + 1, 0);
             if (seen[cell]) throw error("not a groupfit model: a level appears twice");
             seen[cell] = 1;
-            merge_factor(cell, origin, fac, rows, log_w);
+            detail::gram_of_factor(p_ + 2, fac, fac + p_ + 2, tmp.data());
+            merge_gram(cell, origin, tmp.data(), rows, log_w);
         });
 }
 

@@ -1,24 +1,29 @@
 // groupfit core: the mergeable per-cell summary behind every model.
 //
-// For each cell (level of the grouping) the summary keeps a square-root-free
-// orthogonal factor of the cell's rows over the columns [1, x1..xp, y], after
-// shifting every column by the cell's origin (the first value seen in that
-// cell). The factor is the one of Gentleman's weighted Givens algorithm
-// (Gentleman 1974, Applied Statistics algorithm AS 75): a diagonal D and a unit
-// upper-triangular Rbar with R = D^(1/2) Rbar, so that R'R equals the weighted
-// cross-product matrix of the shifted rows without ever forming it. The first
-// row of Rbar holds the cell's running means; D[0] is the cell's weight sum;
-// the last entry of D is the cell's residual sum of squares of y on the
-// covariates within the cell.
+// For each cell (level of the grouping) the summary keeps the weighted
+// cross-product (Gram) matrix of the cell's rows over the columns
+// [1, x1..xp, y], after shifting every column by the cell's origin (the first
+// value seen in that cell), in double-double (ddouble.hpp). Each shifted value
+// x - origin enters as an exact double-double difference and each product and
+// sum carries about 106 bits, so a row costs O((p+2)^2) multiply-adds without
+// a division. Two summaries merge by adding their matrices after moving one to
+// the other's origin.
 //
-// Two summaries merge exactly (up to rounding): the rows of one factor are fed,
-// with their weights D[i], into the other. Memory is O(cells x (p+2)^2),
-// whatever the number of rows.
+// Readers (the fit, the BLOB) see the cell as a square-root-free factor: a
+// diagonal D and a unit upper-triangular Rbar with Rbar' D Rbar equal to the
+// cell's matrix (the LDL' factorisation of it, in double-double). The first
+// row of Rbar holds the cell's means (as shifts from the origin); D[0] is the
+// cell's weight sum; the last entry of D is the cell's residual sum of squares
+// of y on the covariates within the cell. A factor is computed when first read
+// after the cell changed, and kept. A model read from a BLOB holds factors
+// only; its matrices are formed (Rbar' D Rbar) only if rows or models are
+// added to it. Memory is O(cells x (p+2)^2), whatever the number of rows.
 //
-// D and Rbar are held in double-double (ddouble.hpp), and each shifted value
-// x - origin enters as an exact double-double difference, so the factor carries
-// about 106 bits: the rounding it adds is far below what the double input
-// itself carries, even for problems as ill-conditioned as NIST's Wampler5.
+// Accuracy: forming the cross products squares the condition number of a
+// cell's shifted columns, which the 106-bit sums absorb: with condition
+// numbers up to about 1e8 (NIST's Filip, the hardest StRD case, is about
+// 1e7 after the shift) the rounding of the summary stays far below what the
+// double input itself carries (tests/core/test_nist.cpp measures it).
 #pragma once
 
 #include <array>
@@ -71,6 +76,17 @@ template <class T>
 T include_row(int k, T* d, T* rbar, T* row, T w, int first = 0);
 /// Index of rbar(i, j), j > i, in the packed upper triangle of a k-column factor.
 inline int rbar_index(int k, int i, int j) { return i * (2 * k - i - 1) / 2 + (j - i - 1); }
+/// Index of g(i, j), j >= i, in the packed upper triangle (diagonal included)
+/// of a k-column cross-product matrix.
+inline int gram_index(int k, int i, int j) { return i * (2 * k - i + 1) / 2 + (j - i); }
+/// The square-root-free factor (d[k], rbar packed) of a k x k cross-product
+/// matrix g (packed by gram_index): LDL' in double-double. A pivot at or below
+/// 2^-96 of its column's own diagonal (rounding noise of the 106-bit sums, or
+/// exactly collinear columns) becomes an exact zero with a zero rbar row.
+/// `work` holds at least k(k+1)/2 entries.
+void factor_of_gram(int k, const ddouble* g, ddouble* d, ddouble* rbar, ddouble* work);
+/// The cross-product matrix rbar' diag(d) rbar of a factor, packed by gram_index.
+void gram_of_factor(int k, const ddouble* d, const ddouble* rbar, ddouble* g);
 }  // namespace detail
 
 class summary {
@@ -117,33 +133,48 @@ public:
     /// Parses a model BLOB; throws groupfit::error naming what is wrong.
     static summary deserialize(std::string_view blob, const limits& lim);
 
-    // Read access to one cell.
+    // Read access to one cell. The factor accessors compute the cell's factor
+    // if it changed since last read (see settle), so they may throw like it.
     const level& cell_level(std::size_t c) const { return levels_[c]; }
     std::int64_t cell_rows(std::size_t c) const { return n_[c]; }
     double cell_log_weight(std::size_t c) const { return log_w_[c]; }
     const double* cell_origin(std::size_t c) const { return &origin_[c * (p_ + 1)]; }  // p+1
-    const ddouble* cell_d(std::size_t c) const { return &factor_[c * stride()]; }    // p+2
+    const ddouble* cell_d(std::size_t c) const {  // p+2
+        if (stale_count_ != 0) settle();
+        return &factor_[c * stride()];
+    }
     const ddouble* cell_rbar(std::size_t c) const { return cell_d(c) + (p_ + 2); }
     /// Mean of column j (0..p-1 covariates, p = response) in cell c.
     double cell_mean(std::size_t c, int j) const;
     /// The same relative to `origin`: (cell origin - origin) + shifted mean.
     ddouble cell_mean_from(std::size_t c, int j, double origin) const;
 
+    /// Computes the factor of every cell that changed since it was last read.
+    /// Throws groupfit::error when a factor is not finite (values too large),
+    /// std::bad_alloc when memory runs out (then nothing changed).
+    void settle() const;
+
 private:
-    std::size_t stride() const {  // ddouble entries of one cell's factor
+    std::size_t stride() const {  // ddouble entries of one cell's matrix, or of its factor
         const std::size_t k = p_ + 2;
-        return k + k * (k - 1) / 2;
+        return k * (k + 1) / 2;
     }
     double* origin(std::size_t c) { return &origin_[c * (p_ + 1)]; }
-    ddouble* d(std::size_t c) { return &factor_[c * stride()]; }
-    ddouble* rbar(std::size_t c) { return d(c) + (p_ + 2); }
+    ddouble* gram(std::size_t c) { return &gram_[c * stride()]; }
     std::size_t add_cell(const level& lv, std::string key, const limits& lim);
-    void merge_factor(std::size_t into, const double* origin, const ddouble* factor,
-                      std::int64_t rows, double log_w);
+    /// Forms every cell's matrix from its factor (a model read from a BLOB
+    /// before the first change); no-op when the matrices are current.
+    void ensure_gram();
+    /// Adds a cell matrix g (origin o, rows, log weight sum) into cell `into`.
+    void merge_gram(std::size_t into, const double* o, const ddouble* g, std::int64_t rows,
+                    double log_w);
+    void mark_stale(std::size_t c) {
+        if (!stale_[c]) {
+            stale_[c] = 1;
+            ++stale_count_;
+        }
+    }
     void merge_dropped(const std::array<std::int64_t, drop_reason_count>& other);
-    /// Throws when an entry of the cell's factor (or its log weight sum) is not
-    /// finite: the values were too large for the sums of squares.
-    void check_finite(std::size_t cell) const;
     template <class OnHeader, class OnCell>
     static void parse_blob(std::string_view blob, const limits& lim, OnHeader&& on_header,
                            OnCell&& on_cell);
@@ -154,8 +185,16 @@ private:
     std::vector<std::int64_t> n_;
     std::int64_t total_ = 0;  // rows over all cells, at most max_rows
     std::vector<double> log_w_;
-    std::vector<double> origin_;   // per cell: origin[p+1]
-    std::vector<ddouble> factor_;  // per cell: d[p+2], rbar[(p+2)(p+1)/2]
+    std::vector<double> origin_;  // per cell: origin[p+1]
+    // Per cell: the packed upper triangle of the matrix, row by row
+    // (gram_index). Current for every cell when gram_ok_; empty otherwise.
+    std::vector<ddouble> gram_;
+    bool gram_ok_ = true;
+    // Per cell: d[p+2] then rbar[(p+2)(p+1)/2]; current for the cells whose
+    // stale_ flag is 0 (computed by settle, hence mutable).
+    mutable std::vector<ddouble> factor_;
+    mutable std::vector<std::uint8_t> stale_;
+    mutable std::size_t stale_count_ = 0;
     struct key_hash {
         using is_transparent = void;
         std::size_t operator()(std::string_view k) const { return std::hash<std::string_view>{}(k); }
@@ -164,7 +203,7 @@ private:
     std::string last_key_;
     std::size_t last_cell_ = 0;
     std::array<std::int64_t, drop_reason_count> dropped_{};
-    std::vector<ddouble> scratch_;
+    std::vector<ddouble> scratch_;  // 2(p+2): one row's z and w z, or a shift
 };
 
 }  // namespace groupfit

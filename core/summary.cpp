@@ -162,7 +162,95 @@ ddouble summary::cell_mean_from(std::size_t c, int j, double origin) const {
     return dd::two_diff(cell_origin(c)[j], origin) + cell_rbar(c)[detail::rbar_index(p_ + 2, 0, j + 1)];
 }
 
-std::size_t summary::add_cell(const level& lv, std::string key, const limits& lim) {
+namespace {
+
+/// The bytes that identify a level of a given kind: the int64 or the double
+/// (reals are never integral, never zero, never NaN: compared bit for bit),
+/// or the text or blob bytes.
+struct level_bytes {
+    const void* data;
+    std::size_t len;
+};
+level_bytes bytes_of(const level& lv) {
+    switch (lv.kind) {
+    case level_kind::integer: return {&lv.i, sizeof lv.i};
+    case level_kind::real: return {&lv.r, sizeof lv.r};
+    default: return {lv.bytes.data(), lv.bytes.size()};
+    }
+}
+
+/// Up to 8 bytes as one word (n <= 8), without a call to memcpy: levels are
+/// mostly short texts and 8-byte numbers.
+inline std::uint64_t load_small(const unsigned char* p, std::size_t n) {
+    if (n >= 4) {  // two overlapping 4-byte loads
+        std::uint32_t a, b;
+        std::memcpy(&a, p, 4);
+        std::memcpy(&b, p + n - 4, 4);
+        return (static_cast<std::uint64_t>(a) << 32) | b;
+    }
+    if (n == 0) return 0;
+    return (static_cast<std::uint64_t>(p[0]) << 16) | (static_cast<std::uint64_t>(p[n >> 1]) << 8) | p[n - 1];
+}
+
+/// A fast 64-bit hash of a level's kind and bytes (multiply-xorshift over
+/// 8-byte words); only for the in-memory table, never stored.
+std::uint64_t level_hash(level_kind kind, const void* data, std::size_t n) {
+    constexpr std::uint64_t m = 0x9fb21c651e98df25ull;
+    const auto* p = static_cast<const unsigned char*>(data);
+    std::uint64_t h = (0x9e3779b97f4a7c15ull ^ n) * m ^ static_cast<std::uint64_t>(kind);
+    for (; n > 8; p += 8, n -= 8) {
+        std::uint64_t v;
+        std::memcpy(&v, p, 8);
+        h = (h ^ v) * m;
+        h ^= h >> 32;
+    }
+    h = (h ^ load_small(p, n)) * m;
+    h ^= h >> 29;
+    h *= 0xbf58476d1ce4e5b9ull;
+    return h ^ (h >> 32);
+}
+
+bool same_level(const level& lv, level_kind kind, const void* data, std::size_t len) {
+    if (lv.kind != kind) return false;
+    const level_bytes b = bytes_of(lv);
+    if (b.len != len) return false;
+    if (len <= 8)
+        return load_small(static_cast<const unsigned char*>(b.data), len) ==
+               load_small(static_cast<const unsigned char*>(data), len);
+    return std::memcmp(b.data, data, len) == 0;
+}
+
+}  // namespace
+
+std::size_t summary::find_cell(level_kind kind, const void* data, std::size_t len,
+                               std::uint64_t hash) const {
+    if (slots_.empty()) return npos;
+    const std::size_t mask = slots_.size() - 1;
+    const std::uint64_t tag = hash >> 32;
+    for (std::size_t i = hash & mask;; i = (i + 1) & mask) {
+        const std::uint64_t s = slots_[i];
+        if (s == 0) return npos;
+        if ((s >> 32) == tag) {
+            const std::size_t c = static_cast<std::size_t>(s & 0xffffffffu) - 1;
+            if (same_level(levels_[c], kind, data, len)) return c;
+        }
+    }
+}
+
+void summary::rehash(std::size_t size) {
+    std::vector<std::uint64_t> t(size, 0);
+    const std::size_t mask = size - 1;
+    for (std::size_t c = 0; c < levels_.size(); ++c) {
+        const level_bytes b = bytes_of(levels_[c]);
+        const std::uint64_t h = level_hash(levels_[c].kind, b.data, b.len);
+        std::size_t i = h & mask;
+        while (t[i] != 0) i = (i + 1) & mask;
+        t[i] = (h >> 32 << 32) | (c + 1);
+    }
+    slots_ = std::move(t);
+}
+
+std::size_t summary::add_cell(const level& lv, std::uint64_t hash, const limits& lim) {
     if (levels_.size() >= lim.max_levels)
         throw error("too many levels in the grouping argument: the limit is " +
                     std::to_string(lim.max_levels) +
@@ -170,7 +258,10 @@ std::size_t summary::add_cell(const level& lv, std::string key, const limits& li
     // All or nothing: if an allocation fails, the cell is taken out of every
     // member again, so that a summary that threw is still consistent.
     const std::size_t c = levels_.size();
+    // The level cap (at most 1e7, see groupfit_limit) keeps c + 1 within a
+    // slot's low 32 bits.
     try {
+        if (2 * (c + 1) > slots_.size()) rehash(std::max<std::size_t>(16, 2 * slots_.size()));
         levels_.push_back(lv);
         n_.push_back(0);
         log_w_.push_back(0.0);
@@ -183,7 +274,6 @@ std::size_t summary::add_cell(const level& lv, std::string key, const limits& li
         else
             factor_.resize(c * stride() + stride(), ddouble());
         stale_.push_back(0);
-        index_.emplace(std::move(key), c);
     } catch (...) {
         if (levels_.size() > c) levels_.pop_back();
         if (n_.size() > c) n_.pop_back();
@@ -197,6 +287,10 @@ std::size_t summary::add_cell(const level& lv, std::string key, const limits& li
         throw;
     }
     if (gram_ok_) mark_stale(c);
+    const std::size_t mask = slots_.size() - 1;
+    std::size_t i = hash & mask;
+    while (slots_[i] != 0) i = (i + 1) & mask;
+    slots_[i] = (hash >> 32 << 32) | (c + 1);
     return c;
 }
 
@@ -220,18 +314,11 @@ std::size_t summary::cell_for(level_kind kind, const void* data, std::size_t len
         const level lv = level::from_real(v);
         if (lv.kind == level_kind::integer) return cell_for(lv, lim);
     }
-    // Key = kind byte + payload, the same bytes as level::key().
-    const auto* bytes = static_cast<const char*>(data);
-    if (!levels_.empty() && last_key_.size() == len + 1 && last_key_[0] == static_cast<char>(kind) &&
-        std::memcmp(last_key_.data() + 1, bytes, len) == 0)
-        return last_cell_;
-    // last_key_ names last_cell_ only once both are set: on any throw below it
-    // is cleared, so that the shortcut above cannot match a cell never made.
-    try {
-        last_key_.assign(1, static_cast<char>(kind));
-        last_key_.append(bytes, len);
-        auto it = index_.find(std::string_view(last_key_));
-        if (it != index_.end()) return last_cell_ = it->second;
+    if (!levels_.empty() && same_level(levels_[last_cell_], kind, data, len)) return last_cell_;
+    const std::uint64_t h = level_hash(kind, data, len);
+    std::size_t c = find_cell(kind, data, len, h);
+    if (c == npos) {
+        const auto* bytes = static_cast<const char*>(data);
         level lv;
         switch (kind) {
         case level_kind::integer: lv = level::from_integer(*static_cast<const std::int64_t*>(data)); break;
@@ -239,12 +326,9 @@ std::size_t summary::cell_for(level_kind kind, const void* data, std::size_t len
         case level_kind::text: lv = level::from_text(std::string_view(bytes, len)); break;
         case level_kind::blob: lv = level::from_blob(std::string_view(bytes, len)); break;
         }
-        last_cell_ = add_cell(lv, last_key_, lim);
-    } catch (...) {
-        last_key_.clear();
-        throw;
+        c = add_cell(lv, h, lim);
     }
-    return last_cell_;
+    return last_cell_ = c;
 }
 
 void summary::add_row(std::size_t c, const double* values, double w) {
@@ -262,8 +346,30 @@ void summary::add_row(std::size_t c, const double* values, double w) {
     if (weighted_)
         for (int j = 0; j < k; ++j) u[j] = z[j] * w;
     ddouble* g = gram(c);
-    for (int i = 0, e = 0; i < k; ++i)
-        for (int j = i; j < k; ++j, ++e) g[e] += u[i] * z[j];
+    // g += u z' (upper triangle). Each product is summed unnormalised
+    // (p.hi + p.lo with |p.lo| about ulp(p.hi)), which the sum's own
+    // normalisation absorbs. Mostly every shift is exact in one double (the
+    // value and the origin are within a factor of two, or the difference
+    // needs no more bits); then a product of two shifts is two_prod exactly.
+    auto add = [](ddouble& acc, ddouble p) {
+        const ddouble t = dd::two_sum(acc.hi, p.hi);
+        acc = dd::quick_two_sum(t.hi, t.lo + (acc.lo + p.lo));
+    };
+    bool single = !weighted_;
+    for (int j = 1; j < k; ++j) single &= z[j].lo == 0.0;
+    if (single) {
+        add(g[0], ddouble(1.0));
+        for (int j = 1; j < k; ++j) add(g[j], z[j]);
+        for (int i = 1, e = k; i < k; ++i)
+            for (int j = i; j < k; ++j, ++e) add(g[e], dd::two_prod(z[i].hi, z[j].hi));
+    } else {
+        for (int i = 0, e = 0; i < k; ++i)
+            for (int j = i; j < k; ++j, ++e) {
+                ddouble pr = dd::two_prod(u[i].hi, z[j].hi);
+                pr.lo += u[i].hi * z[j].lo + u[i].lo * z[j].hi;
+                add(g[e], pr);
+            }
+    }
     ++n_[c];
     ++total_;
     if (weighted_) log_w_[c] += std::log(w);
@@ -352,9 +458,11 @@ void summary::merge(const summary& other, const limits& lim) {
     const int k = p_ + 2;
     std::vector<ddouble> tmp(other.gram_ok_ ? 0 : stride());
     for (std::size_t c = 0; c < other.cells(); ++c) {
-        std::string key = other.levels_[c].key();
-        auto it = index_.find(key);
-        std::size_t into = it != index_.end() ? it->second : add_cell(other.levels_[c], key, lim);
+        const level& lv = other.levels_[c];
+        const level_bytes b = bytes_of(lv);
+        const std::uint64_t h = level_hash(lv.kind, b.data, b.len);
+        std::size_t into = find_cell(lv.kind, b.data, b.len, h);
+        if (into == npos) into = add_cell(lv, h, lim);
         const ddouble* og = other.gram_ok_ ? &other.gram_[c * stride()] : tmp.data();
         if (!other.gram_ok_) detail::gram_of_factor(k, other.cell_d(c), other.cell_rbar(c), tmp.data());
         merge_gram(into, other.cell_origin(c), og, other.n_[c], other.log_w_[c]);

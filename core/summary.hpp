@@ -31,7 +31,6 @@
 #include <cstdint>
 #include <string>
 #include <string_view>
-#include <unordered_map>
 #include <vector>
 
 #include "ddouble.hpp"
@@ -161,7 +160,14 @@ private:
     }
     double* origin(std::size_t c) { return &origin_[c * (p_ + 1)]; }
     ddouble* gram(std::size_t c) { return &gram_[c * stride()]; }
-    std::size_t add_cell(const level& lv, std::string key, const limits& lim);
+    std::size_t add_cell(const level& lv, std::uint64_t hash, const limits& lim);
+    /// The cell of a level given as raw bytes (see cell_for) and its hash, or
+    /// npos when the summary has no such cell.
+    std::size_t find_cell(level_kind kind, const void* data, std::size_t len,
+                          std::uint64_t hash) const;
+    /// Rebuilds the slot table with `size` slots (a power of two).
+    void rehash(std::size_t size);
+    static constexpr std::size_t npos = static_cast<std::size_t>(-1);
     /// Forms every cell's matrix from its factor (a model read from a BLOB
     /// before the first change); no-op when the matrices are current.
     void ensure_gram();
@@ -195,13 +201,11 @@ private:
     mutable std::vector<ddouble> factor_;
     mutable std::vector<std::uint8_t> stale_;
     mutable std::size_t stale_count_ = 0;
-    struct key_hash {
-        using is_transparent = void;
-        std::size_t operator()(std::string_view k) const { return std::hash<std::string_view>{}(k); }
-    };
-    std::unordered_map<std::string, std::size_t, key_hash, std::equal_to<>> index_;
-    std::string last_key_;
-    std::size_t last_cell_ = 0;
+    // The cells by level: open addressing with linear probing, at most half
+    // full. A slot is 0 (empty) or the level's hash's high 32 bits over
+    // cell + 1, so that a probe compares levels only when the tags agree.
+    std::vector<std::uint64_t> slots_;
+    std::size_t last_cell_ = 0;  // the cell found last (meaningful once a cell exists)
     std::array<std::int64_t, drop_reason_count> dropped_{};
     std::vector<ddouble> scratch_;  // 2(p+2): one row's z and w z, or a shift
 };

@@ -222,30 +222,50 @@ bool same_level(const level& lv, level_kind kind, const void* data, std::size_t 
 
 }  // namespace
 
+
+namespace {
+/// What a slot holds for a level: its bytes when they fit a word, else its hash.
+struct slot_key {
+    std::uint64_t word;
+    std::uint32_t tag;
+};
+inline slot_key key_of(level_kind kind, const void* data, std::size_t len, std::uint64_t h) {
+    if (len <= 8)
+        return {load_small(static_cast<const unsigned char*>(data), len),
+                static_cast<std::uint32_t>(kind) | static_cast<std::uint32_t>(len) << 8};
+    return {h, static_cast<std::uint32_t>(kind) | 255u << 8};
+}
+}  // namespace
+
 std::size_t summary::find_cell(level_kind kind, const void* data, std::size_t len,
                                std::uint64_t hash) const {
     if (slots_.empty()) return npos;
     const std::size_t mask = slots_.size() - 1;
-    const std::uint64_t tag = hash >> 32;
+    const slot_key key = key_of(kind, data, len, hash);
     for (std::size_t i = hash & mask;; i = (i + 1) & mask) {
-        const std::uint64_t s = slots_[i];
-        if (s == 0) return npos;
-        if ((s >> 32) == tag) {
-            const std::size_t c = static_cast<std::size_t>(s & 0xffffffffu) - 1;
-            if (same_level(levels_[c], kind, data, len)) return c;
+        const slot& s = slots_[i];
+        if (s.cell1 == 0) return npos;
+        if (s.word == key.word && s.tag == key.tag) {
+            const std::size_t c = s.cell1 - 1;
+            if (len <= 8 || same_level(levels_[c], kind, data, len)) return c;
         }
     }
 }
 
+void summary::place(std::vector<slot>& table, std::size_t c, std::uint64_t h) const {
+    const level_bytes b = bytes_of(levels_[c]);
+    const slot_key key = key_of(levels_[c].kind, b.data, b.len, h);
+    const std::size_t mask = table.size() - 1;
+    std::size_t i = h & mask;
+    while (table[i].cell1 != 0) i = (i + 1) & mask;
+    table[i] = slot{key.word, static_cast<std::uint32_t>(c + 1), key.tag};
+}
+
 void summary::rehash(std::size_t size) {
-    std::vector<std::uint64_t> t(size, 0);
-    const std::size_t mask = size - 1;
+    std::vector<slot> t(size);
     for (std::size_t c = 0; c < levels_.size(); ++c) {
         const level_bytes b = bytes_of(levels_[c]);
-        const std::uint64_t h = level_hash(levels_[c].kind, b.data, b.len);
-        std::size_t i = h & mask;
-        while (t[i] != 0) i = (i + 1) & mask;
-        t[i] = (h >> 32 << 32) | (c + 1);
+        place(t, c, level_hash(levels_[c].kind, b.data, b.len));
     }
     slots_ = std::move(t);
 }
@@ -266,14 +286,13 @@ std::size_t summary::add_cell(const level& lv, std::uint64_t hash, const limits&
         n_.push_back(0);
         log_w_.push_back(0.0);
         origin_.resize(c * (p_ + 1) + (p_ + 1), 0.0);
-        // A new cell of a summary that holds matrices is stale: its factor is
-        // made (from its matrix) when first read. One read from a BLOB holds
-        // factors only, and the decoder fills them in.
+        // A summary that holds matrices makes the factor of a new cell when
+        // next read (stale_); one read from a BLOB holds factors only, and
+        // the decoder fills them in.
         if (gram_ok_)
             gram_.resize(c * stride() + stride(), ddouble());
         else
             factor_.resize(c * stride() + stride(), ddouble());
-        stale_.push_back(0);
     } catch (...) {
         if (levels_.size() > c) levels_.pop_back();
         if (n_.size() > c) n_.pop_back();
@@ -283,14 +302,10 @@ std::size_t summary::add_cell(const level& lv, std::uint64_t hash, const limits&
             gram_.resize(c * stride());
         else
             factor_.resize(c * stride());
-        if (stale_.size() > c) stale_.pop_back();
         throw;
     }
-    if (gram_ok_) mark_stale(c);
-    const std::size_t mask = slots_.size() - 1;
-    std::size_t i = hash & mask;
-    while (slots_[i] != 0) i = (i + 1) & mask;
-    slots_[i] = (hash >> 32 << 32) | (c + 1);
+    if (gram_ok_) stale_ = true;
+    place(slots_, c, hash);
     return c;
 }
 
@@ -314,7 +329,14 @@ std::size_t summary::cell_for(level_kind kind, const void* data, std::size_t len
         const level lv = level::from_real(v);
         if (lv.kind == level_kind::integer) return cell_for(lv, lim);
     }
-    if (!levels_.empty() && same_level(levels_[last_cell_], kind, data, len)) return last_cell_;
+    // The level of the previous row, compared without touching levels_ when
+    // short (rows often come sorted or clustered by level).
+    if (len <= 8) {
+        const slot_key key = key_of(kind, data, len, 0);
+        if (key.word == last_word_ && key.tag == last_tag_) return last_cell_;
+    } else if (last_tag_ != 0 && same_level(levels_[last_cell_], kind, data, len)) {
+        return last_cell_;
+    }
     const std::uint64_t h = level_hash(kind, data, len);
     std::size_t c = find_cell(kind, data, len, h);
     if (c == npos) {
@@ -328,6 +350,9 @@ std::size_t summary::cell_for(level_kind kind, const void* data, std::size_t len
         }
         c = add_cell(lv, h, lim);
     }
+    const slot_key key = key_of(kind, data, len, h);
+    last_word_ = key.word;
+    last_tag_ = key.tag;
     return last_cell_ = c;
 }
 
@@ -336,7 +361,8 @@ void summary::add_row(std::size_t c, const double* values, double w) {
     if (!gram_ok_) [[unlikely]] ensure_gram();
     const int k = p_ + 2;
     double* o = origin(c);
-    if (n_[c] == 0)
+    ddouble* g = gram(c);
+    if (g[0].hi == 0.0)  // the cell's first row (weights are positive)
         for (int j = 0; j <= p_; ++j) o[j] = values[j];
     // z = (1, x - origin) exactly, as double-doubles; u = w z.
     ddouble* z = scratch_.data();
@@ -345,7 +371,6 @@ void summary::add_row(std::size_t c, const double* values, double w) {
     for (int j = 1; j < k; ++j) z[j] = dd::two_diff(values[j - 1], o[j - 1]);
     if (weighted_)
         for (int j = 0; j < k; ++j) u[j] = z[j] * w;
-    ddouble* g = gram(c);
     // g += u z' (upper triangle). Each product is summed unnormalised
     // (p.hi + p.lo with |p.lo| about ulp(p.hi)), which the sum's own
     // normalisation absorbs. Mostly every shift is exact in one double (the
@@ -373,7 +398,7 @@ void summary::add_row(std::size_t c, const double* values, double w) {
     ++n_[c];
     ++total_;
     if (weighted_) log_w_[c] += std::log(w);
-    mark_stale(c);
+    stale_ = true;
     // Finite values whose squares overflow (around 1e154 and beyond) make the
     // sums infinite or NaN: an error at this row, never a model that its own
     // reports would reject. The diagonal bounds the rest of the matrix
@@ -400,19 +425,17 @@ void summary::ensure_gram() {
 }
 
 void summary::settle() const {
-    if (stale_count_ == 0) return;
-    // Only a summary that holds matrices has stale cells.
+    if (!stale_) return;
+    // Only a summary that holds matrices is ever stale.
     const int k = p_ + 2;
     if (factor_.size() < cells() * stride()) factor_.resize(cells() * stride());
     std::vector<ddouble> work(stride());
-    for (std::size_t c = 0; c < cells() && stale_count_ != 0; ++c) {
-        if (!stale_[c]) continue;
+    for (std::size_t c = 0; c < cells(); ++c) {
         ddouble* f = &factor_[c * stride()];
         detail::factor_of_gram(k, &gram_[c * stride()], f, f + k, work.data());
-        check_finite(f, stride(), log_w_[c]);  // the cell stays stale if it throws
-        stale_[c] = 0;
-        --stale_count_;
+        check_finite(f, stride(), log_w_[c]);  // stale_ stays set if it throws
     }
+    stale_ = false;
 }
 
 void summary::merge_gram(std::size_t into, const double* fo, const ddouble* fg,
@@ -439,7 +462,7 @@ void summary::merge_gram(std::size_t into, const double* fo, const ddouble* fg,
     n_[into] += rows;
     total_ += rows;
     log_w_[into] += log_w;
-    mark_stale(into);
+    stale_ = true;
     check_finite(g, stride(), log_w_[into]);  // two finite models can merge into an infinite one
 }
 

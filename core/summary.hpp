@@ -139,7 +139,7 @@ public:
     double cell_log_weight(std::size_t c) const { return log_w_[c]; }
     const double* cell_origin(std::size_t c) const { return &origin_[c * (p_ + 1)]; }  // p+1
     const ddouble* cell_d(std::size_t c) const {  // p+2
-        if (stale_count_ != 0) settle();
+        if (stale_) settle();
         return &factor_[c * stride()];
     }
     const ddouble* cell_rbar(std::size_t c) const { return cell_d(c) + (p_ + 2); }
@@ -148,12 +148,21 @@ public:
     /// The same relative to `origin`: (cell origin - origin) + shifted mean.
     ddouble cell_mean_from(std::size_t c, int j, double origin) const;
 
-    /// Computes the factor of every cell that changed since it was last read.
+    /// Computes every cell's factor when the model changed since last read.
     /// Throws groupfit::error when a factor is not finite (values too large),
     /// std::bad_alloc when memory runs out (then nothing changed).
     void settle() const;
 
 private:
+    // The cells by level: open addressing with linear probing, at most half
+    // full. A level of at most 8 bytes (every number, short texts) is held in
+    // its slot whole, so that finding it reads the table only; a longer one
+    // keeps its hash there and is compared with levels_ when the hashes agree.
+    struct slot {
+        std::uint64_t word = 0;  // the level's bytes (len <= 8) or its hash
+        std::uint32_t cell1 = 0; // cell + 1; 0 = empty
+        std::uint32_t tag = 0;   // kind in bits 0-7, length (or 255 when > 8) in bits 8-15
+    };
     std::size_t stride() const {  // ddouble entries of one cell's matrix, or of its factor
         const std::size_t k = p_ + 2;
         return k * (k + 1) / 2;
@@ -165,6 +174,8 @@ private:
     /// npos when the summary has no such cell.
     std::size_t find_cell(level_kind kind, const void* data, std::size_t len,
                           std::uint64_t hash) const;
+    /// Puts cell c (level kind/data/len, hash h) into a free slot.
+    void place(std::vector<slot>& table, std::size_t c, std::uint64_t h) const;
     /// Rebuilds the slot table with `size` slots (a power of two).
     void rehash(std::size_t size);
     static constexpr std::size_t npos = static_cast<std::size_t>(-1);
@@ -174,12 +185,6 @@ private:
     /// Adds a cell matrix g (origin o, rows, log weight sum) into cell `into`.
     void merge_gram(std::size_t into, const double* o, const ddouble* g, std::int64_t rows,
                     double log_w);
-    void mark_stale(std::size_t c) {
-        if (!stale_[c]) {
-            stale_[c] = 1;
-            ++stale_count_;
-        }
-    }
     void merge_dropped(const std::array<std::int64_t, drop_reason_count>& other);
     template <class OnHeader, class OnCell>
     static void parse_blob(std::string_view blob, const limits& lim, OnHeader&& on_header,
@@ -196,16 +201,16 @@ private:
     // (gram_index). Current for every cell when gram_ok_; empty otherwise.
     std::vector<ddouble> gram_;
     bool gram_ok_ = true;
-    // Per cell: d[p+2] then rbar[(p+2)(p+1)/2]; current for the cells whose
-    // stale_ flag is 0 (computed by settle, hence mutable).
+    // Per cell: d[p+2] then rbar[(p+2)(p+1)/2]; current unless stale_ (made
+    // by settle from the matrices, hence mutable). One flag for the whole
+    // summary: a row costs no per-cell bookkeeping, and reading a model that
+    // changed costs one factorisation per cell (O(cells (p+2)^3), no rows).
     mutable std::vector<ddouble> factor_;
-    mutable std::vector<std::uint8_t> stale_;
-    mutable std::size_t stale_count_ = 0;
-    // The cells by level: open addressing with linear probing, at most half
-    // full. A slot is 0 (empty) or the level's hash's high 32 bits over
-    // cell + 1, so that a probe compares levels only when the tags agree.
-    std::vector<std::uint64_t> slots_;
+    mutable bool stale_ = false;
+    std::vector<slot> slots_;
     std::size_t last_cell_ = 0;  // the cell found last (meaningful once a cell exists)
+    std::uint64_t last_word_ = 0;  // its slot key (see slot)
+    std::uint32_t last_tag_ = 0;   // 0 until a cell has been found
     std::array<std::int64_t, drop_reason_count> dropped_{};
     std::vector<ddouble> scratch_;  // 2(p+2): one row's z and w z, or a shift
 };

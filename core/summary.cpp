@@ -516,15 +516,6 @@ std::uint64_t fnv1a(const unsigned char* p, std::size_t n) {
     return h;
 }
 
-template <class T>
-void put(std::string& out, T v) {
-    unsigned char b[sizeof(T)];
-    std::memcpy(b, &v, sizeof(T));
-    if constexpr (std::endian::native == std::endian::big)
-        for (std::size_t i = 0; i < sizeof(T) / 2; ++i) std::swap(b[i], b[sizeof(T) - 1 - i]);
-    out.append(reinterpret_cast<const char*>(b), sizeof(T));
-}
-
 struct reader {
     const unsigned char* p;
     std::size_t n, at = 0;
@@ -552,45 +543,73 @@ struct reader {
 
 }  // namespace
 
-std::string summary::serialize() const {
-    settle();  // checks every factor it computes; a BLOB's factors were checked when read
-    std::string out;
+std::size_t summary::serialized_size() const {
+    std::size_t n = 4 + 2 + 2 + 8 + 4 + 4 + 8 * drop_reason_count + 8;
+    for (const level& lv : levels_)
+        n += 1 + 4 + (lv.kind == level_kind::integer || lv.kind == level_kind::real ? 8 : lv.bytes.size());
+    return n + cells() * (8 + 8 + 8 * (p_ + 1) + 16 * stride());
+}
+
+void summary::serialize_to(unsigned char* out) const {
+    // A stale summary (one that changed since last read) writes factors made
+    // here, one cell at a time, without keeping them: this is what the
+    // aggregate does last, and memory then holds the matrices and the BLOB only.
     const int k = p_ + 2;
-    out.reserve(72 + cells() * (32 + 8 * (p_ + 1) + 16 * stride()));
-    out.append(magic, 4);
-    put<std::uint16_t>(out, format_version);
-    put<std::uint16_t>(out, weighted_ ? 1 : 0);
-    put<std::uint64_t>(out, 0);  // length, patched below
-    put<std::uint32_t>(out, static_cast<std::uint32_t>(p_));
-    put<std::uint32_t>(out, static_cast<std::uint32_t>(cells()));
-    for (auto v : dropped_) put<std::uint64_t>(out, static_cast<std::uint64_t>(v));
+    std::vector<ddouble> fresh(stale_ ? 2 * stride() : 0);
+    unsigned char* at = out;
+    auto put = [&](auto v) {
+        unsigned char b[sizeof v];
+        std::memcpy(b, &v, sizeof v);
+        if constexpr (std::endian::native == std::endian::big)
+            for (std::size_t i = 0; i < sizeof v / 2; ++i) std::swap(b[i], b[sizeof v - 1 - i]);
+        std::memcpy(at, b, sizeof v);
+        at += sizeof v;
+    };
+    std::memcpy(at, magic, 4);
+    at += 4;
+    put(static_cast<std::uint16_t>(format_version));
+    put(static_cast<std::uint16_t>(weighted_ ? 1 : 0));
+    put(static_cast<std::uint64_t>(serialized_size()));
+    put(static_cast<std::uint32_t>(p_));
+    put(static_cast<std::uint32_t>(cells()));
+    for (auto v : dropped_) put(static_cast<std::uint64_t>(v));
     for (std::size_t c = 0; c < cells(); ++c) {
         const level& lv = levels_[c];
-        put<std::uint8_t>(out, static_cast<std::uint8_t>(lv.kind));
+        put(static_cast<std::uint8_t>(lv.kind));
         if (lv.kind == level_kind::integer) {
-            put<std::uint32_t>(out, 8);
-            put<std::int64_t>(out, lv.i);
+            put(std::uint32_t{8});
+            put(static_cast<std::int64_t>(lv.i));
         } else if (lv.kind == level_kind::real) {
-            put<std::uint32_t>(out, 8);
-            put<double>(out, lv.r);
+            put(std::uint32_t{8});
+            put(lv.r);
         } else {
-            put<std::uint32_t>(out, static_cast<std::uint32_t>(lv.bytes.size()));
-            out += lv.bytes;
+            put(static_cast<std::uint32_t>(lv.bytes.size()));
+            if (!lv.bytes.empty()) std::memcpy(at, lv.bytes.data(), lv.bytes.size());
+            at += lv.bytes.size();
         }
-        put<std::uint64_t>(out, static_cast<std::uint64_t>(n_[c]));
-        put<double>(out, log_w_[c]);
-        for (int j = 0; j <= p_; ++j) put<double>(out, cell_origin(c)[j]);
-        const ddouble* v = &factor_[c * stride()];
+        put(static_cast<std::uint64_t>(n_[c]));
+        put(log_w_[c]);
+        for (int j = 0; j <= p_; ++j) put(cell_origin(c)[j]);
+        const ddouble* v;
+        if (stale_) {
+            detail::factor_of_gram(k, &gram_[c * stride()], fresh.data(), fresh.data() + k,
+                                   fresh.data() + stride());
+            check_finite(fresh.data(), stride(), log_w_[c]);
+            v = fresh.data();
+        } else {
+            v = &factor_[c * stride()];
+        }
         for (std::size_t j = 0; j < stride(); ++j) {
-            put<double>(out, v[j].hi);
-            put<double>(out, v[j].lo);
+            put(v[j].hi);
+            put(v[j].lo);
         }
     }
-    std::string len;
-    put<std::uint64_t>(len, out.size() + 8);
-    out.replace(8, 8, len);
-    put<std::uint64_t>(out, fnv1a(reinterpret_cast<const unsigned char*>(out.data()), out.size()));
-    (void)k;
+    put(fnv1a(out, static_cast<std::size_t>(at - out)));
+}
+
+std::string summary::serialize() const {
+    std::string out(serialized_size(), '\0');
+    serialize_to(reinterpret_cast<unsigned char*>(out.data()));
     return out;
 }
 

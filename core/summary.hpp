@@ -129,6 +129,10 @@ public:
     void merge_blob(std::string_view blob, const limits& lim);
 
     std::string serialize() const;
+    /// The BLOB's size, and the BLOB written into `out` (serialized_size()
+    /// bytes), for callers that own the buffer. Throws like settle.
+    std::size_t serialized_size() const;
+    void serialize_to(unsigned char* out) const;
     /// Parses a model BLOB; throws groupfit::error naming what is wrong.
     static summary deserialize(std::string_view blob, const limits& lim);
 

@@ -312,8 +312,19 @@ void model_final(sqlite3_context* ctx, const char* fn) noexcept {
     if (st && st->failed) return;
     if (!s) return sqlite3_result_null(ctx);
     guarded(ctx, fn, [&] {
-        std::string blob = s->serialize();
-        sqlite3_result_blob64(ctx, blob.data(), blob.size(), SQLITE_TRANSIENT);
+        // Written straight into SQLite's buffer, which SQLite then owns; the
+        // summary is freed first, so memory never holds it and two BLOBs.
+        const std::size_t n = s->serialized_size();
+        auto* buf = static_cast<unsigned char*>(sqlite3_malloc64(n));
+        if (!buf) throw std::bad_alloc();
+        try {
+            s->serialize_to(buf);
+        } catch (...) {
+            sqlite3_free(buf);
+            throw;
+        }
+        s.reset();
+        sqlite3_result_blob64(ctx, buf, n, sqlite3_free);
     });
 }
 void groupfit_final(sqlite3_context* ctx) noexcept { model_final(ctx, "groupfit"); }

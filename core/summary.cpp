@@ -83,14 +83,21 @@ void factor_of_gram(int k, const ddouble* g, ddouble* d, ddouble* rbar, ddouble*
 }
 
 void gram_of_factor(int k, const ddouble* d, const ddouble* rbar, ddouble* g) {
-    auto rb = [&](int l, int i) { return l == i ? ddouble(1.0) : rbar[rbar_index(k, l, i)]; };
-    for (int i = 0; i < k; ++i)
-        for (int j = i; j < k; ++j) {
-            ddouble acc(0.0);
-            for (int l = 0; l <= i; ++l)
-                if (d[l].hi != 0.0) acc += d[l] * rb(l, i) * rb(l, j);
-            g[gram_index(k, i, j)] = acc;
+    // g(i, j) = sum over l <= i of d_l rbar(l, i) rbar(l, j), rbar(l, l) = 1:
+    // row l of the factor contributes d_l rbar(l, i) (computed once) times
+    // rbar(l, j) to every entry of the trailing triangle.
+    const int n = k * (k + 1) / 2;
+    for (int e = 0; e < n; ++e) g[e] = ddouble(0.0);
+    for (int l = 0; l < k; ++l) {
+        if (d[l].hi == 0.0) continue;
+        const ddouble* r = rbar + rbar_index(k, l, l + 1) - (l + 1);  // r[j] = rbar(l, j), j > l
+        for (int i = l; i < k; ++i) {
+            const ddouble t = i == l ? d[l] : d[l] * r[i];
+            ddouble* gi = g + gram_index(k, i, i) - i;  // gi[j] = g(i, j)
+            gi[i] += i == l ? t : t * r[i];
+            for (int j = i + 1; j < k; ++j) gi[j] += t * r[j];
         }
+    }
 }
 
 }  // namespace detail
@@ -454,10 +461,13 @@ void summary::merge_gram(std::size_t into, const double* fo, const ddouble* fg,
         ddouble* delta = scratch_.data();
         delta[0] = ddouble(0.0);
         for (int j = 1; j < k; ++j) delta[j] = dd::two_diff(fo[j - 1], o[j - 1]);
-        const ddouble w = fg[0];
-        for (int i = 0, e = 0; i < k; ++i)
-            for (int j = i; j < k; ++j, ++e)
-                g[e] += fg[e] + delta[i] * fg[j] + delta[j] * fg[i] + delta[i] * delta[j] * w;
+        // With s'_j = g(0,j) + delta_j g(0,0) (the moved first row):
+        // g'(i,j) = g(i,j) + delta_i s'_j + delta_j g(0,i).
+        ddouble* moved = delta + k;
+        for (int j = 0; j < k; ++j) moved[j] = fg[j] + delta[j] * fg[0];
+        for (int j = 0; j < k; ++j) g[j] += moved[j];
+        for (int i = 1, e = k; i < k; ++i)
+            for (int j = i; j < k; ++j, ++e) g[e] += fg[e] + delta[i] * moved[j] + delta[j] * fg[i];
     }
     n_[into] += rows;
     total_ += rows;

@@ -504,18 +504,61 @@ void summary::merge(const summary& other, const limits& lim) {
 }
 
 // ---------------------------------------------------------------------------
-// BLOB format, version 2 (all integers and doubles little-endian):
+// BLOB format, version 3 (all integers and doubles little-endian):
 //   magic "GFm\x01" (4 bytes) | u16 version | u16 flags (bit 0: weighted)
 //   | u64 total length in bytes, checksum included | u32 p | u32 cells
-//   | u64 dropped[5] | cells... | u64 FNV-1a checksum of all preceding bytes
+//   | u64 dropped[5] | cells... | u64 checksum of all preceding bytes
 // cell: u8 kind | u32 key length | key bytes (int64 or double for numbers)
 //   | u64 rows | f64 log weight sum | f64 origin[p+1] | dd d[p+2]
 //   | dd rbar[(p+2)(p+1)/2]        (dd = two f64, high part then low part)
-// Version 1 was the same with one f64 per d and rbar entry.
+// The checksum (word_checksum below) reads the bytes as little-endian 64-bit
+// words in four independent lanes, about 6 bytes per cycle.
+// Version 2 was the same with a 64-bit FNV-1a checksum (one byte per step,
+// about 4 cycles a byte: 60% of groupfit_merge's time over 1,000 models);
+// version 1 also stored one f64 per d and rbar entry. Both are still read.
 // ---------------------------------------------------------------------------
 namespace {
 
 constexpr char magic[4] = {'G', 'F', 'm', '\x01'};
+
+/// Little-endian 64-bit word at p.
+inline std::uint64_t load_le64(const unsigned char* p) {
+    std::uint64_t v;
+    std::memcpy(&v, p, 8);
+    if constexpr (std::endian::native == std::endian::big) v = __builtin_bswap64(v);
+    return v;
+}
+
+/// The version-3 checksum of n bytes. Four lanes each fold every fourth word
+/// (the last block zero-padded) by a <- rotl((a ^ w) * m, 27); the lanes are
+/// then finished and folded into one value together with n. Every step is a
+/// bijection of the lane (xor with the word, multiplication by an odd
+/// constant, rotation), and the fold is a bijection of each lane given the
+/// others, so any change confined to one 8-byte word, in particular any one
+/// changed byte, always changes the checksum.
+std::uint64_t word_checksum(const unsigned char* p, std::size_t n) {
+    constexpr std::uint64_t m = 0x9fb21c651e98df25ull;
+    std::uint64_t a[4] = {0x243f6a8885a308d3ull, 0x13198a2e03707344ull, 0xa4093822299f31d0ull,
+                          0x082efa98ec4e6c89ull};
+    auto block = [&](const unsigned char* b) {
+        for (int i = 0; i < 4; ++i) a[i] = std::rotl((a[i] ^ load_le64(b + 8 * i)) * m, 27);
+    };
+    std::size_t at = 0;
+    for (; n - at >= 32; at += 32) block(p + at);
+    if (at < n) {
+        unsigned char last[32] = {};
+        std::memcpy(last, p + at, n - at);
+        block(last);
+    }
+    std::uint64_t h = static_cast<std::uint64_t>(n) * m;
+    for (std::uint64_t x : a) {
+        x ^= x >> 33;
+        x *= 0xff51afd7ed558ccdull;
+        x ^= x >> 33;
+        h = std::rotl((h ^ x) * m, 31);
+    }
+    return h;
+}
 
 std::uint64_t fnv1a(const unsigned char* p, std::size_t n) {
     std::uint64_t h = 1469598103934665603ull;
@@ -552,6 +595,10 @@ struct reader {
 };
 
 }  // namespace
+
+std::uint64_t detail::blob_checksum(std::uint16_t version, const unsigned char* p, std::size_t n) {
+    return version >= 3 ? word_checksum(p, n) : fnv1a(p, n);
+}
 
 std::size_t summary::serialized_size() const {
     std::size_t n = 4 + 2 + 2 + 8 + 4 + 4 + 8 * drop_reason_count + 8;
@@ -614,7 +661,7 @@ void summary::serialize_to(unsigned char* out) const {
             put(v[j].lo);
         }
     }
-    put(fnv1a(out, static_cast<std::size_t>(at - out)));
+    put(word_checksum(out, static_cast<std::size_t>(at - out)));
 }
 
 std::string summary::serialize() const {
@@ -650,7 +697,7 @@ void summary::parse_blob(std::string_view blob, const limits& lim, OnHeader&& on
             reader t{r.p, r.n, r.n - 8};
             return t.get<std::uint64_t>();
         }();
-    if (fnv1a(r.p, r.n - 8) != stored)
+    if (detail::blob_checksum(version, r.p, r.n - 8) != stored)
         throw error("not a groupfit model: the checksum does not match (the BLOB was altered)");
     r.n -= 8;  // the checksum is not data
     const auto p = r.get<std::uint32_t>();

@@ -19,11 +19,12 @@
 // only; its matrices are formed (Rbar' D Rbar) only if rows or models are
 // added to it. Memory is O(cells x (p+2)^2), whatever the number of rows.
 //
-// Accuracy: forming the cross products squares the condition number of a
-// cell's shifted columns, which the 106-bit sums absorb: with condition
-// numbers up to about 1e8 (NIST's Filip, the hardest StRD case, is about
-// 1e7 after the shift) the rounding of the summary stays far below what the
-// double input itself carries (tests/core/test_nist.cpp measures it).
+// Accuracy: forming cross products squares the condition number k of a
+// cell's shifted, column-scaled columns. In 106-bit arithmetic the error that
+// adds, about k^2 2^-104, stays below the error the double input itself
+// carries, about k 2^-53, for every k below 2^51; NIST's Filip (k about 3.7e9
+// with the shift) keeps every digit it had with a Givens factor of the rows
+// (tests/core/test_nist.cpp measures them).
 #pragma once
 
 #include <array>
@@ -61,9 +62,10 @@ struct limits {
 /// merged or decoded; adding, merging or decoding beyond it throws.
 inline constexpr std::int64_t max_rows = std::int64_t(1) << 53;
 
-/// BLOB format written by this build. Version 1 (a double factor) is still
-/// read: its values become double-doubles with a zero low part.
-inline constexpr std::uint16_t format_version = 2;
+/// BLOB format written by this build. Versions 1 (a double factor) and 2 (an
+/// FNV-1a checksum) are still read; version 1's values become double-doubles
+/// with a zero low part.
+inline constexpr std::uint16_t format_version = 3;
 
 namespace detail {
 /// Include one weighted row (length k) into a square-root-free factor (d, rbar
@@ -73,6 +75,11 @@ namespace detail {
 /// T is double or ddouble.
 template <class T>
 T include_row(int k, T* d, T* rbar, T* row, T w, int first = 0);
+/// The checksum a model BLOB of format `version` carries over its first n
+/// bytes (everything before the checksum): FNV-1a for versions 1 and 2, the
+/// word-wise checksum of core/summary.cpp from version 3. For tests and
+/// tools that forge or repair BLOBs.
+std::uint64_t blob_checksum(std::uint16_t version, const unsigned char* p, std::size_t n);
 /// Index of rbar(i, j), j > i, in the packed upper triangle of a k-column factor.
 inline int rbar_index(int k, int i, int j) { return i * (2 * k - i - 1) / 2 + (j - i - 1); }
 /// Index of g(i, j), j >= i, in the packed upper triangle (diagonal included)

@@ -93,7 +93,7 @@ TEST(Summary, GoldenBlobsOfEveryFormatVersionStillLoad) {
     const summary rows = golden_rows();
     const fit fresh(rows, parse_options("coding=effect"));
     const table want = coef_report(fresh);
-    for (const char* name : {"model_v1.hex", "model_v2.hex"}) {
+    for (const char* name : {"model_v1.hex", "model_v2.hex", "model_v3.hex"}) {
         const std::string blob =
             read_hex_file(std::string(GROUPFIT_SOURCE_DIR) + "/tests/golden_blobs/" + name);
         ASSERT_FALSE(blob.empty()) << name;
@@ -129,11 +129,13 @@ std::string error_of(const std::function<void()>& f) {
     return "<no error>";
 }
 
-// A version-2 model BLOB written field by field (the layout in
-// core/summary.cpp): no covariates, text levels, each cell with weight sum 2,
-// residual sum of squares 1 and mean 1.5 (origin 1, shifted mean 0.5).
+// A model BLOB written field by field (the layout in core/summary.cpp;
+// versions 2 and 3 differ only in the checksum): no covariates, text levels,
+// each cell with weight sum 2, residual sum of squares 1 and mean 1.5
+// (origin 1, shifted mean 0.5).
 std::string forged_blob(const std::vector<std::pair<std::string, std::uint64_t>>& cells,
-                        const std::array<std::uint64_t, 5>& dropped) {
+                        const std::array<std::uint64_t, 5>& dropped,
+                        std::uint16_t version = groupfit::format_version) {
     std::string b;
     auto put = [&](auto v) {
         char raw[sizeof v];
@@ -141,7 +143,7 @@ std::string forged_blob(const std::vector<std::pair<std::string, std::uint64_t>>
         b.append(raw, sizeof v);
     };
     b += std::string("GFm\x01", 4);
-    put(std::uint16_t(2)), put(std::uint16_t(0)), put(std::uint64_t(0));
+    put(version), put(std::uint16_t(0)), put(std::uint64_t(0));
     put(std::uint32_t(0)), put(std::uint32_t(cells.size()));
     for (auto d : dropped) put(d);
     for (const auto& [label, rows] : cells) {
@@ -152,9 +154,14 @@ std::string forged_blob(const std::vector<std::pair<std::string, std::uint64_t>>
     }
     const std::uint64_t total = b.size() + 8;
     std::memcpy(&b[8], &total, 8);
-    std::uint64_t h = 1469598103934665603ull;  // FNV-1a
-    for (unsigned char c : b) h = (h ^ c) * 1099511628211ull;
-    put(h);
+    if (version == 2) {  // FNV-1a, written here independently of the decoder's
+        std::uint64_t h = 1469598103934665603ull;
+        for (unsigned char c : b) h = (h ^ c) * 1099511628211ull;
+        put(h);
+    } else {
+        put(groupfit::detail::blob_checksum(version, reinterpret_cast<const unsigned char*>(b.data()),
+                                            b.size()));
+    }
     return b;
 }
 constexpr std::uint64_t two53 = std::uint64_t(1) << 53;
@@ -167,6 +174,9 @@ TEST(Summary, ForgedBlobBuilderMatchesTheFormat) {
     EXPECT_EQ(s.dropped_total(), 3);
     EXPECT_DOUBLE_EQ(s.cell_mean(0, 0), 1.5);
     EXPECT_EQ(s.serialize(), forged_blob({{"a", 3}}, {1, 0, 0, 0, 2}));
+    // The same model in format 2 (FNV-1a checksum) reads back to the same BLOB.
+    const summary v2 = summary::deserialize(forged_blob({{"a", 3}}, {1, 0, 0, 0, 2}, 2), limits{});
+    EXPECT_EQ(v2.serialize(), s.serialize());
 }
 
 // Finite values whose squares overflow fail at the row, in add_row; values

@@ -3,7 +3,7 @@
 // - fixed_models(): small deterministic summaries (text levels with two
 //   covariates; integer levels without covariates; a weighted model with an
 //   aliased covariate) that fuzz_options and fuzz_weights fit;
-// - fix_blob(): patches the header length and the FNV-1a checksum of a model
+// - fix_blob(): patches the header length and the checksum of a model
 //   BLOB so that mutated bytes get past the integrity checks and reach the
 //   parser and the fit behind them;
 // - run_reports(): every report of a fit; groupfit::error is the only
@@ -37,15 +37,6 @@ namespace gf_fuzz {
 
 // ------------------------------------------------------------ model BLOBs
 
-inline std::uint64_t fnv1a(const char* p, std::size_t n) {
-    std::uint64_t h = 1469598103934665603ull;
-    for (std::size_t i = 0; i < n; ++i) {
-        h ^= static_cast<unsigned char>(p[i]);
-        h *= 1099511628211ull;
-    }
-    return h;
-}
-
 inline void put_u64(std::string& s, std::size_t at, std::uint64_t v) {
     for (int k = 0; k < 8; ++k) s[at + k] = static_cast<char>((v >> (8 * k)) & 0xff);
 }
@@ -59,7 +50,12 @@ inline constexpr std::size_t min_blob = 4 + 2 + 2 + 8 + 4 + 4 + 8 * 5 + 8;
 inline std::string fix_blob(std::string b) {
     if (b.size() < min_blob) return b;
     put_u64(b, 8, b.size());
-    put_u64(b, b.size() - 8, fnv1a(b.data(), b.size() - 8));
+    // The checksum of the version the (possibly mutated) header names.
+    const auto version = static_cast<std::uint16_t>(static_cast<unsigned char>(b[4]) |
+                                                    static_cast<unsigned char>(b[5]) << 8);
+    put_u64(b, b.size() - 8,
+            groupfit::detail::blob_checksum(version, reinterpret_cast<const unsigned char*>(b.data()),
+                                            b.size() - 8));
     return b;
 }
 

@@ -18,6 +18,8 @@
 #include <variant>
 #include <vector>
 
+#include "summary.hpp"  // blob_checksum, to forge BLOBs with a valid checksum
+
 #ifndef GROUPFIT_MODULE
 #error "GROUPFIT_MODULE (path of the built groupfit.so) must be defined"
 #endif
@@ -251,16 +253,6 @@ void expect_same_reports(database& db, const std::string& m1, const std::string&
     }
 }
 
-// FNV-1a 64, the checksum of the model format (core/summary.cpp), so that the
-// tests can build BLOBs whose checksum is right but whose content is not.
-std::uint64_t fnv1a(const std::string& s, std::size_t n) {
-    std::uint64_t h = 1469598103934665603ull;
-    for (std::size_t i = 0; i < n; ++i) {
-        h ^= static_cast<unsigned char>(s[i]);
-        h *= 1099511628211ull;
-    }
-    return h;
-}
 std::uint64_t get_u64(const std::string& s, std::size_t at) {
     std::uint64_t v = 0;
     for (int k = 7; k >= 0; --k) v = (v << 8) | static_cast<unsigned char>(s[at + k]);
@@ -269,11 +261,20 @@ std::uint64_t get_u64(const std::string& s, std::size_t at) {
 void put_u64(std::string& s, std::size_t at, std::uint64_t v) {
     for (int k = 0; k < 8; ++k) s[at + k] = static_cast<char>((v >> (8 * k)) & 0xff);
 }
+// The checksum of the format version the BLOB's header names (core/summary.hpp),
+// so that the tests can build BLOBs whose checksum is right but whose content
+// is not.
+std::uint64_t checksum_of(const std::string& m) {
+    const auto version = static_cast<std::uint16_t>(static_cast<unsigned char>(m[4]) |
+                                                    static_cast<unsigned char>(m[5]) << 8);
+    return groupfit::detail::blob_checksum(version, reinterpret_cast<const unsigned char*>(m.data()),
+                                           m.size() - 8);
+}
 std::string with_checksum(std::string m) {
-    put_u64(m, m.size() - 8, fnv1a(m, m.size() - 8));
+    put_u64(m, m.size() - 8, checksum_of(m));
     return m;
 }
-bool checksum_ok(const std::string& m) { return get_u64(m, m.size() - 8) == fnv1a(m, m.size() - 8); }
+bool checksum_ok(const std::string& m) { return get_u64(m, m.size() - 8) == checksum_of(m); }
 
 // A small table with three unbalanced levels, one covariate and weights.
 // Values are chosen so that no estimate is exactly zero.
@@ -1189,31 +1190,31 @@ TEST(BadInput, ModelFromAFutureFormatVersion) {
     database db;
     make_small(db);
     const std::string m = db.model("SELECT groupfit(y, g) FROM t");
-    ASSERT_EQ(static_cast<unsigned char>(m[4]), 2);  // bytes 5-6: u16 version 2, little-endian
+    ASSERT_EQ(static_cast<unsigned char>(m[4]), 3);  // bytes 5-6: u16 version 3, little-endian
     ASSERT_EQ(static_cast<unsigned char>(m[5]), 0);
     std::string future = m;
-    future[4] = 3;
+    future[4] = 4;
     // The checksum no longer matches, yet the version is what is reported:
     // the version check comes first.
     EXPECT_FALSE(checksum_ok(future));
     const std::string expected2 =
-        "the model was written by a newer groupfit (format version 3); this build reads versions up to 2";
+        "the model was written by a newer groupfit (format version 4); this build reads versions up to 3";
     EXPECT_EQ(db.error("SELECT * FROM groupfit_coef(?)", {blob{future}}), "groupfit_coef: " + expected2);
     EXPECT_EQ(db.error("SELECT groupfit_merge(?)", {blob{future}}), "groupfit_merge: " + expected2);
     // The same with a valid checksum.
     EXPECT_EQ(db.error("SELECT * FROM groupfit_summary(?)", {blob{with_checksum(future)}}),
               "groupfit_summary: " + expected2);
-    // The high byte of the version field counts too: 0x0101 = 257.
+    // The high byte of the version field counts too: 0x0103 = 259.
     future = m;
     future[5] = 1;
     EXPECT_EQ(db.error("SELECT * FROM groupfit_coef(?)", {blob{future}}),
-              "groupfit_coef: the model was written by a newer groupfit (format version 258); this "
-              "build reads versions up to 2");
-    // In SQL, byte surgery on the model: bytes 5-6 replaced by x'0300'.
-    EXPECT_EQ(db.error("SELECT * FROM groupfit_coef((SELECT CAST(substr(m, 1, 4) || x'0300' || "
+              "groupfit_coef: the model was written by a newer groupfit (format version 259); this "
+              "build reads versions up to 3");
+    // In SQL, byte surgery on the model: bytes 5-6 replaced by x'0400'.
+    EXPECT_EQ(db.error("SELECT * FROM groupfit_coef((SELECT CAST(substr(m, 1, 4) || x'0400' || "
                        "substr(m, 7) AS BLOB) FROM (SELECT groupfit(y, g) m FROM t)))"),
-              "groupfit_coef: the model was written by a newer groupfit (format version 3); this "
-              "build reads versions up to 2");
+              "groupfit_coef: the model was written by a newer groupfit (format version 4); this "
+              "build reads versions up to 3");
 }
 
 TEST(BadInput, MergingModelsOfDifferentShapes) {

@@ -1418,30 +1418,37 @@ TEST(Scale, MismatchedMergeInsideGroupByIsAnError) {
               "groupfit_merge: models differ in shape: 0 covariates vs 1");
 }
 
-// Models from different format versions merge: the golden version-1 BLOB of
-// tests/golden_blobs merged with a fresh version-2 model of the same rows
-// equals the model of the rows taken twice.
+// Models from different format versions merge: the golden version-1 and
+// version-2 BLOBs of tests/golden_blobs merged with a fresh model (the current
+// version) of the same rows equal the model of the rows taken three times.
 TEST(Scale, ModelsFromDifferentFormatVersionsMerge) {
     database db;
     std::ifstream data(std::string(GROUPFIT_SOURCE_DIR) + "/tests/golden_blobs/data.sql");
     std::string sql((std::istreambuf_iterator<char>(data)), std::istreambuf_iterator<char>());
     ASSERT_FALSE(sql.empty());
     db.exec(sql);
-    std::ifstream hex(std::string(GROUPFIT_SOURCE_DIR) + "/tests/golden_blobs/model_v1.hex");
-    std::string v1hex;
-    hex >> v1hex;
-    ASSERT_FALSE(v1hex.empty());
+    auto golden = [](const char* name) {
+        std::ifstream hex(std::string(GROUPFIT_SOURCE_DIR) + "/tests/golden_blobs/" + name);
+        std::string h, b;
+        hex >> h;
+        for (std::size_t i = 0; i + 1 < h.size(); i += 2)
+            b += static_cast<char>(std::stoi(h.substr(i, 2), nullptr, 16));
+        return b;
+    };
+    const std::string v1 = golden("model_v1.hex"), v2 = golden("model_v2.hex");
+    ASSERT_FALSE(v1.empty());
+    ASSERT_FALSE(v2.empty());
+    ASSERT_EQ(v1[4], 1);
+    ASSERT_EQ(v2[4], 2);
+    const std::string fresh = db.model("SELECT groupfit(y, g, x) FROM t");
+    ASSERT_EQ(fresh[4], 3);
     const std::string merged = db.model(
-        "SELECT groupfit_merge(m) FROM (SELECT ?1 AS m UNION ALL SELECT groupfit(y, g, x) FROM t)",
-        {blob{[&] {
-            std::string b;
-            for (std::size_t i = 0; i + 1 < v1hex.size(); i += 2)
-                b += static_cast<char>(std::stoi(v1hex.substr(i, 2), nullptr, 16));
-            return b;
-        }()}});
-    const std::string twice = db.model(
-        "SELECT groupfit(y, g, x) FROM (SELECT * FROM t UNION ALL SELECT * FROM t)");
-    expect_same_coef(db, merged, twice, 1e-12);
+        "SELECT groupfit_merge(m) FROM (SELECT ?1 AS m UNION ALL SELECT ?2 UNION ALL SELECT ?3)",
+        {blob{v1}, blob{v2}, blob{fresh}});
+    const std::string thrice = db.model(
+        "SELECT groupfit(y, g, x) FROM (SELECT * FROM t UNION ALL SELECT * FROM t UNION ALL "
+        "SELECT * FROM t)");
+    expect_same_coef(db, merged, thrice, 1e-12);
 }
 
 // ------------------------------------------------------------- crossed factors

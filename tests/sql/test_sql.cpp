@@ -3,13 +3,20 @@
 // a SQL user can meet. Error texts are pinned exactly, as SQLite's own tests do.
 #include <gtest/gtest.h>
 #include <sqlite3.h>
+// The type of SQLite's API table (for BadInput.ArgumentCountChangingBetweenRows);
+// SQLITE_CORE keeps sqlite3ext.h from routing this program's calls through it.
+#define SQLITE_CORE 1
+#include <sqlite3ext.h>
+#undef SQLITE_CORE
 
 #include <algorithm>
+#include <array>
 #include <cmath>
 #include <cstdint>
 #include <cstring>
 #include <fstream>
 #include <iterator>
+#include <dlfcn.h>
 #include <unistd.h>
 #include <map>
 #include <set>
@@ -275,6 +282,63 @@ std::string with_checksum(std::string m) {
     return m;
 }
 bool checksum_ok(const std::string& m) { return get_u64(m, m.size() - 8) == checksum_of(m); }
+
+// A model BLOB written field by field from the format comment in
+// core/summary.cpp (version 2, no covariates, unweighted), with a right length
+// and checksum, so that each content check of the decoder can be met on its
+// own. A cell of one row with response y has origin y, d = (1, 0) and rbar 0;
+// ForgedModelsMatchTheAggregate checks the writer against real models.
+struct forged_cell {
+    std::uint8_t kind = 3;  // 1 integer, 2 real, 3 text, 4 blob
+    std::string key;        // the level's bytes (8 little-endian bytes for numbers)
+    std::uint64_t rows = 1;
+    double origin = 0.0;
+    std::vector<double> factor = {1.0, 0.0, 0.0, 0.0, 0.0, 0.0};  // d0, d1, rbar01, each (hi, lo)
+    std::int64_t key_length = -1;  // the stored key length; -1: key.size()
+};
+std::string le_bytes(const void* v, std::size_t n) {
+    std::string s(static_cast<const char*>(v), n);  // little-endian host (x86-64, arm64)
+    return s;
+}
+forged_cell text_cell(const std::string& label, double y) {
+    forged_cell c;
+    c.key = label;
+    c.origin = y;
+    return c;
+}
+forged_cell integer_cell(std::int64_t v, double y) {
+    forged_cell c;
+    c.kind = 1;
+    c.key = le_bytes(&v, 8);
+    c.origin = y;
+    return c;
+}
+forged_cell real_cell(double v, double y) {
+    forged_cell c;
+    c.kind = 2;
+    c.key = le_bytes(&v, 8);
+    c.origin = y;
+    return c;
+}
+std::string forge_model(const std::vector<forged_cell>& cells, const std::string& after_cells = "",
+                        const std::array<std::uint64_t, 5>& dropped = {}) {
+    std::string b("GFm\x01", 4);
+    auto put = [&](auto v) { b += le_bytes(&v, sizeof v); };
+    put(std::uint16_t(2)), put(std::uint16_t(0)), put(std::uint64_t(0));
+    put(std::uint32_t(0)), put(std::uint32_t(cells.size()));
+    for (std::uint64_t d : dropped) put(d);
+    for (const forged_cell& c : cells) {
+        put(c.kind);
+        put(std::uint32_t(c.key_length < 0 ? c.key.size() : std::size_t(c.key_length)));
+        b += c.key;
+        put(c.rows), put(0.0), put(c.origin);
+        for (double v : c.factor) put(v);
+    }
+    b += after_cells;
+    b += std::string(8, '\0');  // the checksum
+    put_u64(b, 8, b.size());
+    return with_checksum(b);
+}
 
 // A small table with three unbalanced levels, one covariate and weights.
 // Values are chosen so that no estimate is exactly zero.
@@ -897,6 +961,110 @@ TEST(BadInput, TooFewArguments) {
               "wrong number of arguments to function groupfit_merge()");
 }
 
+// The aggregates' guard against an argument count that changes between rows
+// cannot be met from SQL: SQLite gives every aggregate call its own context, a
+// call has one argument count, and the aggregates refuse to be window
+// functions. To meet it anyway, the module is initialised a second time on a
+// connection with a copy of SQLite's API table whose create_function_v2 notes
+// the aggregate callbacks it registers; an aggregate of the test's own then
+// calls groupfit's xStep with a row's argument count taken from its first
+// argument (SQLite's real contexts and values throughout).
+namespace arity_probe {
+
+using step_fn = void (*)(sqlite3_context*, int, sqlite3_value**);
+using final_fn = void (*)(sqlite3_context*);
+struct aggregate {
+    void* app = nullptr;
+    step_fn step = nullptr;
+    final_fn final = nullptr;
+};
+const sqlite3_api_routines* real_api = nullptr;
+sqlite3_api_routines noting_api;
+std::map<std::string, aggregate> aggregates;
+
+int capture_api(sqlite3*, char**, const sqlite3_api_routines* api) {
+    real_api = api;
+    return SQLITE_OK;
+}
+int noting_create_function_v2(sqlite3* db, const char* name, int n, int flags, void* app, step_fn func,
+                              step_fn step, final_fn final, void (*destroy)(void*)) {
+    if (step) aggregates[name] = {app, step, final};
+    return real_api->create_function_v2(db, name, n, flags, app, func, step, final, destroy);
+}
+// probe_<aggregate>(argc, args...): that aggregate's xStep with argc of the
+// arguments after the first; its xFinal.
+const char* const names[] = {"groupfit", "groupfit_weighted"};
+template <int I>
+void probe_step(sqlite3_context* ctx, int argc, sqlite3_value** argv) {
+    aggregates[names[I]].step(ctx, std::min(sqlite3_value_int(argv[0]), argc - 1), argv + 1);
+}
+template <int I>
+void probe_final(sqlite3_context* ctx) {
+    aggregates[names[I]].final(ctx);
+}
+
+}  // namespace arity_probe
+
+TEST(BadInput, ArgumentCountChangingBetweenRows) {
+    using namespace arity_probe;
+    // SQLite's API table: an auto extension is handed it for every connection.
+    ASSERT_EQ(sqlite3_auto_extension(reinterpret_cast<void (*)(void)>(capture_api)), SQLITE_OK);
+    sqlite3* db = nullptr;
+    const int open_rc = sqlite3_open(":memory:", &db);
+    sqlite3_cancel_auto_extension(reinterpret_cast<void (*)(void)>(capture_api));
+    struct closer {
+        sqlite3* db;
+        ~closer() { sqlite3_close(db); }
+    } close_db{db};
+    ASSERT_EQ(open_rc, SQLITE_OK);
+    ASSERT_NE(real_api, nullptr);
+    void* module = dlopen(GROUPFIT_MODULE, RTLD_NOW | RTLD_LOCAL);
+    ASSERT_NE(module, nullptr) << dlerror();
+    using init_fn = int (*)(sqlite3*, char**, const sqlite3_api_routines*);
+    auto init = reinterpret_cast<init_fn>(dlsym(module, "sqlite3_groupfit_init"));
+    ASSERT_NE(init, nullptr);
+    noting_api = *real_api;
+    noting_api.create_function_v2 = noting_create_function_v2;
+    aggregates.clear();
+    char* err = nullptr;
+    const int rc = init(db, &err, &noting_api);
+    sqlite3_free(err);
+    ASSERT_EQ(rc, SQLITE_OK);
+    ASSERT_EQ(aggregates.count("groupfit"), 1u);
+    ASSERT_EQ(aggregates.count("groupfit_weighted"), 1u);
+    // The probes carry groupfit's connection state (its limits), as its own aggregates do.
+    void* config = aggregates["groupfit"].app;
+    ASSERT_EQ(aggregates["groupfit_weighted"].app, config);
+    ASSERT_EQ(sqlite3_create_function_v2(db, "probe_groupfit", -1, SQLITE_UTF8, config, nullptr, probe_step<0>,
+                                         probe_final<0>, nullptr),
+              SQLITE_OK);
+    ASSERT_EQ(sqlite3_create_function_v2(db, "probe_groupfit_weighted", -1, SQLITE_UTF8, config, nullptr,
+                                         probe_step<1>, probe_final<1>, nullptr),
+              SQLITE_OK);
+    auto run = [&](const std::string& sql) {
+        sqlite3_stmt* st = nullptr;
+        if (sqlite3_prepare_v2(db, sql.c_str(), -1, &st, nullptr) != SQLITE_OK) return std::string(sqlite3_errmsg(db));
+        const int step_rc = sqlite3_step(st);
+        std::string out = step_rc == SQLITE_ROW ? std::string("row: ") +
+                                                      (sqlite3_column_type(st, 0) == SQLITE_BLOB ? "blob" : "other")
+                                                : std::string(sqlite3_errmsg(db));
+        sqlite3_finalize(st);
+        return out;
+    };
+    // The same count on every row: the probe is groupfit itself.
+    EXPECT_EQ(run("SELECT probe_groupfit(3, column1, 'a', column2) FROM (VALUES (1.0, 2.0), (2.0, 3.5))"),
+              "row: blob");
+    EXPECT_EQ(run("SELECT probe_groupfit_weighted(4, 1.0, column1, 'a', column2) FROM (VALUES (1.0, 2.0), (2.0, 3.5))"),
+              "row: blob");
+    // One covariate on the first row, none (or two) on the second.
+    EXPECT_EQ(run("SELECT probe_groupfit(column1, column2, 'a', column3, 0.5) FROM (VALUES (3, 1.0, 2.0), (2, 2.0, 3.5))"),
+              "groupfit: the number of covariates changed between rows");
+    EXPECT_EQ(run("SELECT probe_groupfit_weighted(column1, 1.0, column2, 'a', column3, 0.5) "
+                  "FROM (VALUES (4, 1.0, 2.0), (5, 2.0, 3.5))"),
+              "groupfit_weighted: the number of covariates changed between rows");
+    dlclose(module);
+}
+
 TEST(BadInput, ZeroRowsGiveNullAndTheReportOfNullIsEmpty) {
     database db;
     make_small(db);
@@ -1051,6 +1219,10 @@ TEST(BadInput, OptionErrors) {
               "covariate(s)");
     EXPECT_EQ(err("coding=polynomial; spacing=values"),
               "groupfit_coef: options: spacing=values needs numeric levels; level 'a' is not a number");
+    EXPECT_EQ(err("names=grp,,x"), "groupfit_coef: options: names has an empty name");
+    EXPECT_EQ(err("names=,"), "groupfit_coef: options: names has an empty name");
+    EXPECT_EQ(err("order=a,,b"), "groupfit_coef: options: order has an empty level name");
+    EXPECT_EQ(err("order=\"\""), "groupfit_coef: options: order has an empty level name");
     // Options are checked by every report, not only groupfit_coef.
     for (const char* f : report_functions)
         EXPECT_EQ(err("coding=foo", f),
@@ -1066,6 +1238,58 @@ TEST(BadInput, OptionErrors) {
     EXPECT_EQ(db.query("SELECT * FROM groupfit_coef(?1, ' CODING = effect ; base = b ; conf=0.9 ;')",
                        {blob{m}})
                   .rows.size(),
+              3u);
+}
+
+// Polynomial coding: at most 500 levels; with spacing=values the numeric
+// level values must be distinct as doubles (integer levels 2^53 and 2^53 + 1
+// are two levels, but the same double).
+TEST(BadInput, PolynomialCodingLimits) {
+    database db;
+    const std::string series =
+        "WITH RECURSIVE s(i) AS (SELECT 1 UNION ALL SELECT i + 1 FROM s WHERE i < ?1) "
+        "SELECT groupfit(i % 7 + i * 0.25, i) FROM s";
+    const std::string m501 = db.model(series, {std::int64_t(501)});
+    EXPECT_EQ(db.error("SELECT * FROM groupfit_coef(?1, 'coding=polynomial')", {blob{m501}}),
+              "groupfit_coef: options: coding=polynomial supports at most 500 levels; this model has 501");
+    const std::string m500 = db.model(series, {std::int64_t(500)});
+    EXPECT_EQ(db.scalar("SELECT count(*) FROM groupfit_coef(?1, 'coding=polynomial')", {blob{m500}}).i, 500);
+
+    const std::string close = db.model(
+        "SELECT groupfit(column1, column2) FROM (VALUES (1.0, 9007199254740992), (2.0, 9007199254740993), "
+        "(4.0, 5), (3.5, 5))");
+    EXPECT_EQ(db.error("SELECT * FROM groupfit_coef(?1, 'coding=polynomial; spacing=values')", {blob{close}}),
+              "groupfit_coef: options: spacing=values needs distinct level values");
+    // Equal spacing does not look at the values.
+    EXPECT_EQ(db.scalar("SELECT count(*) FROM groupfit_coef(?1, 'coding=polynomial')", {blob{close}}).i, 3);
+    // Levels 1 and the next double above 1 are two doubles, but no polynomial
+    // of degree 2 separates them from each other at double precision.
+    const std::string next = db.model(
+        "SELECT groupfit(column1, column2) FROM (VALUES (1.0, 1), (2.0, 1.0000000000000002), (4.0, 5))");
+    EXPECT_EQ(db.error("SELECT * FROM groupfit_coef(?1, 'coding=polynomial; spacing=values')", {blob{next}}),
+              "groupfit_coef: options: spacing=values needs distinct level values");
+}
+
+// A known limit of Dunnett's method here: when the comparisons with the
+// control are correlated to 1 at double precision (a control whose weight sum
+// is negligible next to the others', so that every comparison is the control's
+// mean; or a covariate almost confounded with the grouping), the correlation
+// matrix is singular and the distribution's argument check refuses it. The
+// error names the cause; methods that hold under any correlation still work
+// (README error catalogue: "dunnett: the correlation matrix must be positive
+// definite").
+TEST(BadInput, DunnettWithComparisonsCorrelatedToOne) {
+    database db;
+    db.exec("CREATE TABLE d(g TEXT, y REAL, w REAL)");
+    db.exec("INSERT INTO d VALUES ('c', 1.0, 1e-30), ('c', 2.0, 1e-30), ('a', 3, 1), ('a', 4.5, 1), "
+            "('b', 5, 1), ('b', 6.2, 1), ('e', 1.1, 1), ('e', 2.7, 1)");
+    const std::string m = db.model("SELECT groupfit_weighted(w, y, g) FROM d");
+    EXPECT_EQ(db.error("SELECT * FROM groupfit_pairs(?1, 'vs=c')", {blob{m}}),
+              "groupfit_pairs: dunnett: the correlation matrix must be positive definite");
+    EXPECT_EQ(db.query("SELECT * FROM groupfit_pairs(?1, 'vs=c; adjust=bonferroni')", {blob{m}}).rows.size(), 3u);
+    // A control of ordinary weight: Dunnett works on the same levels.
+    db.exec("UPDATE d SET w = 0.5 WHERE g = 'c'");
+    EXPECT_EQ(db.query("SELECT * FROM groupfit_pairs((SELECT groupfit_weighted(w, y, g) FROM d), 'vs=c')").rows.size(),
               3u);
 }
 
@@ -1179,11 +1403,116 @@ TEST(BadInput, BlobsThatAreNotModels) {
     EXPECT_EQ(coef(with_checksum(v0)),
               "groupfit_coef: not a groupfit model: format version 0 does not exist");
     // Content checks behind a valid checksum: a stored number that is not
-    // finite, a negative factor weight.
+    // finite (the others: ForgedModelContentIsRejected).
     std::string nan_blob = m;
     put_u64(nan_blob, nan_blob.size() - 16, 0x7ff8000000000000ull);  // last rbar entry
     EXPECT_EQ(coef(with_checksum(nan_blob)),
               "groupfit_coef: not a groupfit model: a stored number is not finite");
+}
+
+// The BLOB writer of these tests writes what the aggregate writes (so that the
+// rejections below are of the one field each test changes).
+TEST(BadInput, ForgedModelsMatchTheAggregate) {
+    database db;
+    EXPECT_EQ(forge_model({text_cell("a", 5.0), text_cell("b", 7.5)}),
+              db.model("SELECT groupfit(column1, column2) FROM (VALUES (5.0, 'a'), (7.5, 'b'))"));
+    EXPECT_EQ(forge_model({integer_cell(-3, 1.0), real_cell(2.5, 4.0)}),
+              db.model("SELECT groupfit(column1, column2) FROM (VALUES (1.0, -3), (4.0, 2.5))"));
+    // Two rows: d0 = 2, d1 = the residual sum of squares, rbar01 = the mean's
+    // offset from the origin (here y = 1, 3: origin 1, offset 1, RSS 2).
+    forged_cell two = text_cell("a", 1.0);
+    two.rows = 2;
+    two.factor = {2.0, 0.0, 2.0, 0.0, 1.0, 0.0};
+    EXPECT_EQ(forge_model({two}), db.model("SELECT groupfit(column1, 'a') FROM (VALUES (1.0), (3.0))"));
+}
+
+// Every content check of the decoder (core/summary.cpp, parse_blob), each met
+// by a BLOB whose length and checksum are right, in a report and in a merge.
+TEST(BadInput, ForgedModelContentIsRejected) {
+    database db;
+    auto both = [&](const std::string& b) {
+        const std::string coef = db.error("SELECT * FROM groupfit_coef(?)", {blob{b}});
+        const std::string merge = db.error("SELECT groupfit_merge(?)", {blob{b}});
+        const std::string prefix = "groupfit_coef: ";
+        EXPECT_EQ(merge, "groupfit_merge: " + coef.substr(coef.rfind(prefix, 0) == 0 ? prefix.size() : 0));
+        return coef;
+    };
+    const forged_cell a = text_cell("a", 5.0), b = text_cell("b", 7.5);
+    // The unchanged forged model is accepted: two levels, their means.
+    auto ok = db.query("SELECT level, mean FROM groupfit_levels(?)", {blob{forge_model({a, b})}});
+    ASSERT_EQ(ok.rows.size(), 2u);
+    EXPECT_EQ(ok.rows[1][0].s, "b");
+    EXPECT_EQ(ok.rows[1][1].d, 7.5);
+
+    forged_cell c = integer_cell(4, 1.0);
+    c.key.resize(4);
+    c.key_length = 4;
+    EXPECT_EQ(both(forge_model({a, c})), "groupfit_coef: not a groupfit model: a numeric level has a bad size");
+    EXPECT_EQ(both(forge_model({a, real_cell(3.0, 1.0)})),
+              "groupfit_coef: not a groupfit model: a real level holds an integer");
+    c = a;
+    c.kind = 7;
+    EXPECT_EQ(both(forge_model({c})), "groupfit_coef: not a groupfit model: unknown level type 7");
+    c.kind = 0;
+    EXPECT_EQ(both(forge_model({c})), "groupfit_coef: not a groupfit model: unknown level type 0");
+    c = a;
+    c.factor[1] = 0.5;  // d0 = 1 + 0.5: the low part is not below the high part's last bit
+    EXPECT_EQ(both(forge_model({c})), "groupfit_coef: not a groupfit model: a stored double-double is not normalised");
+    c = a;
+    c.factor[2] = -1.0;  // d1 (the residual sum of squares) negative
+    EXPECT_EQ(both(forge_model({c})), "groupfit_coef: not a groupfit model: a cell factor has a negative weight");
+    c = a;
+    c.factor[0] = 0.0;  // d0 (the weight sum) zero
+    EXPECT_EQ(both(forge_model({b, c})), "groupfit_coef: not a groupfit model: a cell has no weight");
+    EXPECT_EQ(both(forge_model({a, b}, std::string(1, '\0'))),
+              "groupfit_coef: not a groupfit model: unexpected bytes after the last cell");
+    EXPECT_EQ(both(forge_model({a, b, text_cell("a", 6.0)})),
+              "groupfit_coef: not a groupfit model: a level appears twice");
+    // Merged into a model that already has the level: still a duplicate within
+    // the one BLOB (merge_blob), while the same level in two BLOBs merges.
+    EXPECT_EQ(db.error("SELECT groupfit_merge(m) FROM (SELECT ?1 AS m UNION ALL SELECT ?2)",
+                       {blob{forge_model({a})}, blob{forge_model({b, text_cell("b", 1.0)})}}),
+              "groupfit_merge: not a groupfit model: a level appears twice");
+    EXPECT_EQ(db.scalar("SELECT typeof(groupfit_merge(m)) FROM (SELECT ?1 AS m UNION ALL SELECT ?2)",
+                        {blob{forge_model({a, b})}, blob{forge_model({b})}})
+                  .s,
+              "blob");
+}
+
+// Row counts behind a valid checksum: each at most 2^53, and so are their sums
+// in one model and in a merge (core/summary.hpp, max_rows).
+TEST(BadInput, ForgedRowCountsOutOfRange) {
+    database db;
+    constexpr std::uint64_t two53 = std::uint64_t(1) << 53;
+    auto coef = [&](const std::string& b) { return db.error("SELECT * FROM groupfit_coef(?)", {blob{b}}); };
+    forged_cell a = text_cell("a", 5.0), b = text_cell("b", 7.5);
+    a.rows = 0;
+    EXPECT_EQ(coef(forge_model({a})), "groupfit_coef: not a groupfit model: a cell has an impossible row count");
+    a.rows = two53 + 1;
+    EXPECT_EQ(coef(forge_model({a})), "groupfit_coef: not a groupfit model: a cell has an impossible row count");
+    a.rows = two53 / 2 + 1;
+    b.rows = two53 / 2;
+    EXPECT_EQ(coef(forge_model({a, b})), "groupfit_coef: not a groupfit model: a cell has an impossible row count");
+    EXPECT_EQ(coef(forge_model({text_cell("a", 1.0)}, "", {0, 0, two53 + 1, 0, 0})),
+              "groupfit_coef: not a groupfit model: a row count is out of range");
+    EXPECT_EQ(coef(forge_model({text_cell("a", 1.0)}, "", {two53, 0, 0, 0, 1})),
+              "groupfit_coef: not a groupfit model: a row count is out of range");
+    // Each model is valid alone; merged, the counts pass 2^53.
+    const std::string half_rows = forge_model({a}), other_half = forge_model({b});
+    EXPECT_EQ(db.scalar("SELECT rows_used FROM groupfit_summary(?)", {blob{half_rows}}).i,
+              static_cast<std::int64_t>(two53 / 2 + 1));
+    EXPECT_EQ(db.scalar("SELECT typeof(groupfit_merge(m)) FROM (SELECT ?1 AS m UNION ALL SELECT ?2)",
+                        {blob{forge_model({b})}, blob{forge_model({text_cell("c", 1.0)})}})
+                  .s,
+              "blob");
+    EXPECT_EQ(db.error("SELECT groupfit_merge(m) FROM (SELECT ?1 AS m UNION ALL SELECT ?2)",
+                       {blob{half_rows}, blob{other_half}}),
+              "groupfit_merge: the merged model would have more than 2^53 rows");
+    const std::string half_dropped = forge_model({text_cell("a", 1.0)}, "", {two53 / 2, 0, 0, 0, 0});
+    const std::string half_dropped_plus = forge_model({text_cell("b", 1.0)}, "", {0, 0, 0, two53 / 2 + 1, 0});
+    EXPECT_EQ(db.error("SELECT groupfit_merge(m) FROM (SELECT ?1 AS m UNION ALL SELECT ?2)",
+                       {blob{half_dropped}, blob{half_dropped_plus}}),
+              "groupfit_merge: the merged model would count more than 2^53 dropped rows");
 }
 
 TEST(BadInput, ModelFromAFutureFormatVersion) {
@@ -1516,6 +1845,90 @@ TEST(Crossed, MergesAndSegmentsEqualTheOnePassModel) {
               "every row a groupfit_cross of the same factors");
 }
 
+// Errors whose exact text the core tests pin (test_compare, test_cross)
+// reach SQL too, prefixed by the function that raised them.
+TEST(BadInput, CoreCheckedErrorsThroughSql) {
+    database db;
+    make_small(db);
+    make_crossed(db);
+    const std::string m = db.model("SELECT groupfit(y, g, x) FROM t");
+    const std::string m0 = db.model("SELECT groupfit(y, g) FROM t");
+    const std::string crossed = db.model("SELECT groupfit(y, groupfit_cross(a, b), x) FROM c");
+    auto err = [&](const std::string& model, const char* f, const std::string& opts) {
+        return db.error(std::string("SELECT * FROM ") + f + "(?1, ?2)", {blob{model}, opts});
+    };
+    auto werr = [&](const std::string& model, const std::string& weights, const std::string& opts = "") {
+        return db.error("SELECT * FROM groupfit_contrast(?1, ?2, ?3)", {blob{model}, weights, opts});
+    };
+    EXPECT_EQ(err(m, "groupfit_pairs", "adjust=foo"),
+              "groupfit_pairs: options: adjust must be one of none, bonferroni, holm, sidak, bh, tukey, scheffe, "
+              "dunnett (not 'foo')");
+    EXPECT_EQ(err(m, "groupfit_pairs", "adjust=dunnett"),
+              "groupfit_pairs: options: adjust=dunnett compares every level with a control: name it with vs=LEVEL");
+    EXPECT_EQ(err(m, "groupfit_pairs", "adjust=tukey; vs=a"),
+              "groupfit_pairs: options: adjust=tukey compares all pairs and cannot be combined with vs=; for "
+              "comparisons with a control use adjust=dunnett (or none, bonferroni, holm, sidak, bh, scheffe)");
+    EXPECT_EQ(err(m, "groupfit_pairs", "vs=a; side=up"),
+              "groupfit_pairs: options: side must be one of two_sided, greater, less (not 'up')");
+    EXPECT_EQ(err(m, "groupfit_pairs", "side=greater"),
+              "groupfit_pairs: options: side= applies to comparisons with a control (vs=LEVEL)");
+    EXPECT_EQ(err(m, "groupfit_pairs", "adjust=scheffe; vs=a; side=less"),
+              "groupfit_pairs: options: side= is not available with adjust=scheffe (two-sided only)");
+    EXPECT_EQ(err(m, "groupfit_levels", "at=z:1"),
+              "groupfit_levels: options: at names an unknown covariate 'z' (covariates: x1)");
+    EXPECT_EQ(err(m, "groupfit_levels", "at=x1"),
+              "groupfit_levels: options: at takes covariate:value pairs, for example at=distance_km:25, "
+              "weight_kg:3 (not 'x1')");
+    EXPECT_EQ(err(m, "groupfit_tests", "slopes=varying"),
+              "groupfit_tests: options: slopes must be one of common, separate, cell (not 'varying')");
+    EXPECT_EQ(err(m, "groupfit_levels", "means=weighted"),
+              "groupfit_levels: options: means must be one of equal, proportional (not 'weighted')");
+    EXPECT_EQ(db.error("SELECT * FROM groupfit_pairs((SELECT groupfit(y, 'one') FROM t))"),
+              "groupfit_pairs: comparisons need at least two levels; the model has one");
+
+    EXPECT_EQ(werr(m0, "a=1, b"),
+              "groupfit_contrast: weights: 'b' is not level=weight (for example 'a=1, b=-0.5, c=-0.5; a=1, d=-1')");
+    EXPECT_EQ(werr(m0, "a=1, a=-1"), "groupfit_contrast: weights: level 'a' appears twice in one contrast");
+    EXPECT_EQ(werr(m0, "a=0, b=0"), "groupfit_contrast: weights: a contrast has only zero weights");
+    EXPECT_EQ(werr(m0, " ; "), "groupfit_contrast: weights: no contrast given (for example 'a=1, b=-1')");
+    EXPECT_EQ(werr(m0, "a=1, b=minus one"),
+              "groupfit_contrast: weights: the weight of 'b' must be a number, not 'minus one'");
+    // A covariate that is 1 on level a and 0 elsewhere is aliased with the
+    // grouping: a against any other level is not estimable, b against c is.
+    const std::string aliased = db.model("SELECT groupfit(y, g, g = 'a') FROM t");
+    EXPECT_EQ(werr(aliased, "a=1, b=-1"),
+              "groupfit_contrast: weights: '1*a - 1*b' is not estimable: an aliased covariate confounds it");
+    EXPECT_EQ(db.query("SELECT * FROM groupfit_contrast(?1, 'b=1, c=-1')", {blob{aliased}}).rows.size(), 2u);
+
+    EXPECT_EQ(werr(crossed, "a=1, b=-1", "by=factor2"), "groupfit_contrast: options: by= applies to groupfit_pairs");
+    EXPECT_EQ(err(crossed, "groupfit_pairs", "factor=cell; by=factor2"),
+              "groupfit_pairs: options: by= compares levels of factor= within levels of another factor; it cannot "
+              "be combined with factor=cell");
+    EXPECT_EQ(err(crossed, "groupfit_pairs", "factor=factor1; by=factor1"),
+              "groupfit_pairs: options: by= must name a factor other than factor=");
+    EXPECT_EQ(err(crossed, "groupfit_coef", "coding=custom; custom=1,-1,0 / 0,1,-1"),
+              "groupfit_coef: options: coding=custom applies to one-factor models; crossed factors take dummy, "
+              "effect, weighted_effect, helmert, reverse_helmert, successive or polynomial");
+    EXPECT_EQ(err(crossed, "groupfit_tests", "order=b, a"),
+              "groupfit_tests: options: order= applies to one-factor models; the levels of crossed factors are in "
+              "ascending order");
+
+    // The caps of crossed models: 1001 x 1001 combinations from 1001 rows;
+    // a 70 x 60 full factorial (4200 design columns) from 70 rows.
+    const std::string series = "WITH RECURSIVE s(i) AS (SELECT 0 UNION ALL SELECT i + 1 FROM s WHERE i < ?1) ";
+    const std::string wide =
+        db.model(series + "SELECT groupfit(i * 0.5, groupfit_cross(i, i)) FROM s", {std::int64_t(1000)});
+    EXPECT_EQ(db.error("SELECT * FROM groupfit_tests(?1)", {blob{wide}}),
+              "groupfit_tests: the crossed factors have more than 1000000 combinations of levels; cross fewer "
+              "factors or levels");
+    const std::string big =
+        db.model(series + "SELECT groupfit(i * 0.5, groupfit_cross(i, i % 60)) FROM s", {std::int64_t(69)});
+    EXPECT_EQ(db.error("SELECT * FROM groupfit_tests(?1)", {blob{big}}),
+              "groupfit_tests: the model has 4200 design columns; the limit is 4000 (use terms=main or "
+              "terms=two_way, or fewer levels)");
+    EXPECT_EQ(db.error("SELECT * FROM groupfit_tests(?1, 'terms=main')", {blob{big}}), "<no error>");
+}
+
 TEST(Crossed, OptionErrorsAndPlannerOr) {
     database db;
     make_crossed(db);
@@ -1527,6 +1940,11 @@ TEST(Crossed, OptionErrorsAndPlannerOr) {
     EXPECT_EQ(err(m, "names=p, q; by=r", "groupfit_pairs"),
               "groupfit_pairs: options: by names 'r', which is not a factor of the model (factors: p, q)");
     EXPECT_EQ(err(plain, "by=a", "groupfit_pairs"), "groupfit_pairs: options: by= needs crossed factors (groupfit_cross)");
+    EXPECT_EQ(err(m, "by=", "groupfit_pairs"), "groupfit_pairs: options: by needs a factor name");
+    EXPECT_EQ(err(m, "factor= ", "groupfit_pairs"), "groupfit_pairs: options: factor needs a factor name or cell");
+    EXPECT_EQ(err(m, "names=p, q, d, e", "groupfit_levels"),
+              "groupfit_levels: options: names lists 4 names but the model has 2 factor(s) and 1 covariate(s)");
+    EXPECT_EQ(db.query("SELECT * FROM groupfit_levels(?1, 'names=p, q, d')", {blob{m}}).rows.empty(), false);
     EXPECT_EQ(err(plain, "factor=a", "groupfit_pairs"),
               "groupfit_pairs: options: factor= needs crossed factors (groupfit_cross)");
     EXPECT_EQ(db.error("SELECT * FROM groupfit_contrast(?1, 5)", {blob{plain}}),

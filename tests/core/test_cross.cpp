@@ -16,6 +16,7 @@
 #include <algorithm>
 #include <cmath>
 #include <fstream>
+#include <functional>
 #include <limits>
 #include <map>
 #include <random>
@@ -513,6 +514,32 @@ TEST(CrossErrors, ClearMessages) {
         level::from_blob(encode_cross({level::from_text("a"), level::from_text("b"), level::from_text("c")})), lim);
     EXPECT_THROW(check_same_factors(m, c), error);
     EXPECT_THROW(crossed_factors(m), error);
+}
+
+// Both fitting paths refuse a summary without cells. Not reachable from SQL:
+// the reports there stop earlier with "the model has no usable rows (...)"
+// (test_sql AllRowsNullGiveAModelWithoutUsableRows), so the guards are met by
+// calling the core directly.
+TEST(CrossErrors, NoCellsIsAnErrorOnBothPaths) {
+    const summary empty(1, false);
+    auto msg = [](const std::function<void()>& f) {
+        try {
+            f();
+        } catch (const error& e) {
+            return std::string(e.what());
+        }
+        return std::string("no error");
+    };
+    EXPECT_EQ(msg([&] { const fit f(empty, parse_options("")); }), "the model has no rows");
+    EXPECT_EQ(msg([&] { cross_tests_report(empty, parse_options("")); }), "the model has no rows");
+    EXPECT_EQ(msg([&] { cross_levels_report(empty, parse_options("slopes=separate")); }), "the model has no rows");
+    // One row is enough for both.
+    summary one(1, false);
+    limits lim;
+    const double row[2] = {0.5, 2.0};  // x, y
+    one.add_row(one.cell_for(level::from_text("a"), lim), row, 1.0);
+    EXPECT_EQ(msg([&] { const fit f(one, parse_options("")); }), "no error");
+    EXPECT_EQ(msg([&] { cross_levels_report(one, parse_options("")); }), "no error");
 }
 
 // The caps on a crossed model: level combinations and design columns.

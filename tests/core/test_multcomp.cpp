@@ -560,3 +560,100 @@ TEST(DunnettIdentities, LowRankAgreesWithGeneralQmc) {
                                                                         dunnett_sides::two_sided).value,
                     1.0, 1e-10);
 }
+
+// ---------------------------------------------------------------------------
+// The argument checks of the public Dunnett functions, each met by a direct
+// call with arguments that break it (exact messages: they are in the README's
+// error catalogue). groupfit_pairs builds its arguments from the model so that
+// most of these cannot fail; the SQL inputs that still reach some of them
+// (comparisons correlated to 1 at double precision) are pinned in test_sql.
+// ---------------------------------------------------------------------------
+
+template <class F>
+std::string message_of(F&& f) {
+    try {
+        f();
+    } catch (const groupfit::error& e) {
+        return e.what();
+    }
+    return "(no error)";
+}
+
+TEST(DunnettGuards, ExactMessages) {
+    const auto two = dunnett_sides::two_sided;
+    Eigen::VectorXd none(0), lambda(2), n(2), t2(2), t3(3);
+    lambda << 0.5, 0.4;
+    n << 3, 4;
+    t2 << 1.0, 2.0;
+    t3 << 1.0, 2.0, 3.0;
+    Eigen::MatrixXd corr(2, 2);
+    corr << 1, 0.5, 0.5, 1;
+    // The valid arguments work (so each failure below is of the one change).
+    EXPECT_EQ(message_of([&] { dunnett_product_upper_p(2.0, lambda, 10, two); }), "(no error)");
+    EXPECT_EQ(message_of([&] { many_to_one_lambda(n, 5.0); }), "(no error)");
+    EXPECT_EQ(message_of([&] { dunnett_adjusted_p(t2, corr, 10, two); }), "(no error)");
+
+    EXPECT_EQ(message_of([&] { dunnett_product_upper_p(2.0, none, 10, two); }),
+              "dunnett: there must be at least one comparison");
+    for (double bad : {1.0, -1.0, 1.5, std::nan("")}) {
+        Eigen::VectorXd l = lambda;
+        l[1] = bad;
+        EXPECT_EQ(message_of([&] { dunnett_product_quantile(0.95, l, 10, two); }),
+                  "dunnett: every lambda must be below 1 in absolute value")
+            << bad;
+    }
+    EXPECT_EQ(message_of([&] { many_to_one_lambda(n, 0.0); }), "dunnett: the control group size must be positive");
+    EXPECT_EQ(message_of([&] { many_to_one_lambda(n, std::nan("")); }),
+              "dunnett: the control group size must be positive");
+    Eigen::VectorXd n0 = n;
+    n0[1] = 0.0;
+    EXPECT_EQ(message_of([&] { many_to_one_lambda(n0, 5.0); }),
+              "dunnett: every treatment group size must be positive");
+
+    const Eigen::MatrixXd wide = Eigen::MatrixXd::Identity(2, 3), empty(0, 0);
+    EXPECT_EQ(message_of([&] { product_form_factors(wide); }), "dunnett: the correlation matrix must be square");
+    EXPECT_EQ(message_of([&] { dunnett_upper_p(2.0, wide, 10, two); }),
+              "dunnett: the correlation matrix must be square and not empty");
+    EXPECT_EQ(message_of([&] { dunnett_quantile(0.95, empty, 10, two); }),
+              "dunnett: the correlation matrix must be square and not empty");
+    Eigen::MatrixXd c = corr;
+    c(1, 1) = 0.9;
+    EXPECT_EQ(message_of([&] { dunnett_cdf(2.0, c, 10, two); }),
+              "dunnett: the correlation matrix must have a unit diagonal");
+    c = corr;
+    c(1, 0) = 0.4;
+    EXPECT_EQ(message_of([&] { dunnett_cdf(2.0, c, 10, two); }),
+              "dunnett: the correlation matrix must be symmetric with entries in [-1, 1]");
+    c(0, 1) = c(1, 0) = 1.2;
+    EXPECT_EQ(message_of([&] { dunnett_cdf(2.0, c, 10, two); }),
+              "dunnett: the correlation matrix must be symmetric with entries in [-1, 1]");
+    // Symmetric with entries in [-1, 1] but not a correlation matrix
+    // (eigenvalue 1 - 0.9 - 0.9 < 0); not of product form, so the QMC's
+    // Cholesky factorisation meets it.
+    Eigen::MatrixXd not_pd(3, 3);
+    not_pd << 1, 0.9, -0.9, 0.9, 1, 0.9, -0.9, 0.9, 1;
+    EXPECT_EQ(message_of([&] { dunnett_upper_p(2.0, not_pd, 10, two); }),
+              "dunnett: the correlation matrix must be positive definite");
+    EXPECT_EQ(message_of([&] { dunnett_adjusted_p(t3, corr, 10, two); }),
+              "dunnett: there must be one statistic per row of the correlation matrix");
+
+    lowrank_covariance cov;
+    cov.a = Eigen::VectorXd::Constant(3, 0.1);
+    cov.V = Eigen::MatrixXd::Constant(3, 1, 0.2);  // one column: the exact product form, fast
+    EXPECT_EQ(message_of([&] { dunnett_lowrank(t3, cov, 10, two, 0.95); }), "(no error)");
+    EXPECT_EQ(message_of([&] { dunnett_lowrank(t2, cov, 10, two, 0.95); }),
+              "dunnett: the low-rank covariance does not match the statistics");
+    lowrank_covariance short_v{cov.a, cov.V.topRows(2)}, no_columns{cov.a, Eigen::MatrixXd(3, 0)};
+    EXPECT_EQ(message_of([&] { dunnett_lowrank(t3, short_v, 10, two, 0.95); }),
+              "dunnett: the low-rank covariance does not match the statistics");
+    EXPECT_EQ(message_of([&] { dunnett_lowrank(t3, no_columns, 10, two, 0.95); }),
+              "dunnett: the low-rank covariance does not match the statistics");
+    lowrank_covariance bad = cov;
+    bad.a[2] = 0.0;
+    EXPECT_EQ(message_of([&] { dunnett_lowrank(t3, bad, 10, two, 0.95); }),
+              "dunnett: the low-rank covariance is not valid");
+    bad = cov;
+    bad.V(1, 0) = std::numeric_limits<double>::infinity();
+    EXPECT_EQ(message_of([&] { dunnett_lowrank(t3, bad, 10, two, 0.95); }),
+              "dunnett: the low-rank covariance is not valid");
+}

@@ -116,6 +116,10 @@ integral gk(F f, const std::vector<double>& breaks, double tol = 1e-12, int max_
     };
     integral r;
     std::vector<panel> panels;
+    // One allocation per integral (Dunnett's inner integrals are evaluated by
+    // the hundred): the loop below stops at max_panels, or at once when the
+    // breaks already give more.
+    panels.reserve(std::max<std::size_t>(breaks.size(), static_cast<std::size_t>(std::max(max_panels, 1))));
     for (std::size_t i = 0; i + 1 < breaks.size(); ++i)
         if (breaks[i + 1] > breaks[i]) panels.push_back(rule(breaks[i], breaks[i + 1]));
     if (panels.empty()) return r;
@@ -632,6 +636,8 @@ public:
             reach_ = std::max(reach_, std::fabs(l));
         }
         m_ = static_cast<std::size_t>(lambda.size());
+        cuts_.reserve(3 + 2 * lam_.size());
+        pts_.reserve(3 + 2 * lam_.size());
     }
     std::size_t size() const { return m_; }
 
@@ -699,6 +705,7 @@ private:
     }
     mutable bool cache_on_ = false;
     mutable std::map<long, piece> cache_;
+    mutable std::vector<double> cuts_, pts_;  // log_tail_direct's scratch
 
 public:
     double log_tail_direct(double x, double* rel_err = nullptr) const {
@@ -711,7 +718,11 @@ public:
         // sd sigma_i <= 1 under the phi(y) envelope: 9.5 beyond the outermost
         // centre leaves less than e^-45 of it.
         const double y_max = (tilt ? reach_ * x : 0.0) + 9.5;
-        std::vector<double> cuts{-y_max, y_max, 0.0};
+        // Scratch kept between calls (this is called hundreds of times per
+        // probability): no allocation after the first call.
+        std::vector<double>& cuts = cuts_;
+        std::vector<double>& pts = pts_;
+        cuts.assign({-y_max, y_max, 0.0});
         if (tilt) {
             for (double l : lam_) {
                 cuts.push_back(l * x);
@@ -719,7 +730,7 @@ public:
             }
         }
         std::sort(cuts.begin(), cuts.end());
-        std::vector<double> pts;
+        pts.clear();
         for (double c : cuts) {
             c = std::clamp(c, -y_max, y_max);
             if (pts.empty() || c - pts.back() > 0.25) pts.push_back(c);

@@ -35,11 +35,10 @@
 // it. In the sanitize build the child also runs LeakSanitizer's check at the
 // end. One failure point can be rerun in this process, e.g. under gdb:
 //   GROUPFIT_OOM_REPRO=coef,transient,210 test_oom --gtest_filter='*coef_transient'
-// Not covered: Eigen's matrices allocate with std::malloc, not operator new, so
-// those allocations are neither failed nor counted (LeakSanitizer still sees
-// them); the Dunnett scenario, whose distribution makes thousands of
-// allocations in one loop, is sampled past its first points; and in a
-// sanitizer build only every third point is failed (see sampling_for).
+// Every allocation point of every scenario is failed, in every build (the
+// scenarios are kept small enough for that: see scenarios()). Not covered:
+// Eigen's matrices allocate with std::malloc, not operator new, so those
+// allocations are neither failed nor counted (LeakSanitizer still sees them).
 #include <gtest/gtest.h>
 #include <sqlite3.h>
 
@@ -437,9 +436,9 @@ std::vector<std::string> setup() {
 std::vector<scenario> scenarios() {
     const std::string m = "(SELECT groupfit(y, g, x) FROM t)";
     const std::string m0 = "(SELECT groupfit(y, g) FROM t)";
-    // Two levels, one-sided: Dunnett's one comparison takes about 1000 C++
-    // allocations (two-sided about 5800, three levels about 14000 to 48000,
-    // too many to fail one by one in a test run).
+    // Two levels, one-sided: the product-form integral of Dunnett's one
+    // comparison (its adjusted p-value and critical value) takes about 460 C++
+    // allocations; more levels or two sides take many more.
     const std::string m2 = "(SELECT groupfit(y, g, x) FROM t WHERE g IN ('a', 'b'))";
     const std::size_t after_setup = setup().size();
     // Loading the module, creating and filling the table are swept in the
@@ -505,16 +504,26 @@ std::vector<scenario> scenarios() {
         {"dunnett",
          with_setup({"SELECT * FROM groupfit_pairs(" + m2 + ", 'vs=b; side=greater; conf=0.9')"}),
          after_setup},
-        // Crossed factors (core/factorial.cpp): the general path's reports.
-        {"crossed",
-         with_setup({"SELECT * FROM groupfit_tests((SELECT groupfit(y, groupfit_cross(g, seg), x) FROM t))",
-                     "SELECT * FROM groupfit_levels((SELECT groupfit(y, groupfit_cross(g, seg)) FROM t), "
-                     "'means=proportional')",
-                     "SELECT * FROM groupfit_coef((SELECT groupfit(y, groupfit_cross(g, seg), x) FROM t), "
-                     "'coding=effect; terms=main')",
-                     "SELECT * FROM groupfit_pairs((SELECT groupfit(y, groupfit_cross(g, seg)) FROM t), "
-                     "'by=factor2; adjust=holm')",
-                     "SELECT * FROM groupfit_summary((SELECT groupfit(y, g, x) FROM t), 'slopes=separate')"}),
+        // Crossed factors (core/factorial.cpp): the general path's reports, one
+        // scenario each (an attempt reruns its whole scenario, so five small
+        // ones cost a fifth of one with all five statements).
+        {"cross_tests",
+         with_setup({"SELECT * FROM groupfit_tests((SELECT groupfit(y, groupfit_cross(g, seg), x) FROM t))"}),
+         after_setup},
+        {"cross_levels",
+         with_setup({"SELECT * FROM groupfit_levels((SELECT groupfit(y, groupfit_cross(g, seg)) FROM t), "
+                     "'means=proportional')"}),
+         after_setup},
+        {"cross_coef",
+         with_setup({"SELECT * FROM groupfit_coef((SELECT groupfit(y, groupfit_cross(g, seg), x) FROM t), "
+                     "'coding=effect; terms=main')"}),
+         after_setup},
+        {"cross_pairs",
+         with_setup({"SELECT * FROM groupfit_pairs((SELECT groupfit(y, groupfit_cross(g, seg)) FROM t), "
+                     "'by=factor2; adjust=holm')"}),
+         after_setup},
+        {"slopes",
+         with_setup({"SELECT * FROM groupfit_summary((SELECT groupfit(y, g, x) FROM t), 'slopes=separate')"}),
          after_setup},
         {"contrast",
          with_setup({"SELECT * FROM groupfit_contrast(" + m + ", 'a=1, b=-1')",
@@ -706,71 +715,6 @@ std::string attempt(const scenario& s, const std::vector<outcome>& ref, long at,
     return problems;
 }
 
-// Which allocation points a sweep fails. In the release build every one,
-// except in a scenario whose fault-free run makes more than `max_points`
-// allocations (Dunnett's distribution makes thousands of small ones in one
-// integration loop): there every point up to `dense` is failed, then every
-// step-th point (about `sparse` more). In a sanitizer build a point costs about
-// ten times as much, and the full sweep takes several minutes on a two-core
-// machine, so there only every third point is failed (deterministically:
-// transient mode fails points 1, 4, 7, ..., persistent mode 2, 5, 8, ..., so
-// that the two modes together cover two points in three), and Dunnett's
-// sparse part has about `sparse_sanitized` points; setting
-// GROUPFIT_OOM_FULL=1 fails every point in any build (and Dunnett's as in the
-// release build). The test prints what it did. The final run, past the last
-// allocation, must meet no failure.
-constexpr long max_points = 2500, dense = 500, sparse = 250, sparse_sanitized = 100;
-
-#if defined(__SANITIZE_ADDRESS__)
-constexpr long sanitizer_stride = 3;
-#elif defined(__has_feature)
-#if __has_feature(address_sanitizer)
-constexpr long sanitizer_stride = 3;
-#else
-constexpr long sanitizer_stride = 1;
-#endif
-#else
-constexpr long sanitizer_stride = 1;
-#endif
-
-struct sampling {
-    long first = 1;   // the first point failed
-    long stride = 1;  // then every stride-th point up to `dense` ...
-    long step = 1;    // ... and every step-th point after it
-};
-
-sampling sampling_for(long full_run, fault::mode m) {
-    const char* full = std::getenv("GROUPFIT_OOM_FULL");
-    const long stride = full && std::string(full) == "1" ? 1 : sanitizer_stride;
-    sampling s;
-    s.stride = stride;
-    s.first = 1 + (m == fault::mode::persistent ? 1 : 0) % stride;
-    const long n_sparse = stride > 1 ? sparse_sanitized : sparse;
-    s.step = full_run <= max_points ? stride : std::max(stride, (full_run - dense) / n_sparse);
-    return s;
-}
-long next_point(long at, const sampling& s) { return at < dense ? at + s.stride : at + s.step; }
-
-// "3rd", "24th"; "one" for 1.
-std::string nth(long k) {
-    if (k == 1) return "one";
-    const long t = k % 100;
-    const char* suffix = t >= 11 && t <= 13 ? "th"
-                         : k % 10 == 1          ? "st"
-                         : k % 10 == 2          ? "nd"
-                         : k % 10 == 3          ? "rd"
-                                                : "th";
-    return std::to_string(k) + suffix;
-}
-
-std::string describe(const sampling& s) {
-    if (s.stride == 1 && s.step == 1) return "every one failed";
-    std::string d = "sampled: every " + nth(s.stride) + " from " + std::to_string(s.first);
-    if (s.step != s.stride) d += " up to " + std::to_string(dense) + ", then every " + nth(s.step);
-    if (s.stride > 1) d += " (sanitizer build; GROUPFIT_OOM_FULL=1 fails every point)";
-    return d;
-}
-
 // State a sweep shares with the process that watches it (MAP_SHARED), so
 // that a crash still tells at which allocation it happened and what had been
 // counted so far.
@@ -821,13 +765,11 @@ void sweep(const scenario& s, fault::mode m, long start, shared_state& st, std::
         if (!p.empty()) return report(std::string(s.name) + ", no allocation failing:" + p);
         st.full_run = c.total_allocs;
     }
-    const sampling plan = sampling_for(st.full_run, m);
     constexpr long limit = 1000000;
     // Each distinct problem is reported when first met, with how often it
     // recurred at the end (unless the sweep crashes first).
     std::map<std::string, std::pair<long, long>> seen;  // problem -> first point, points
-    for (long at = plan.first; at < limit; at = next_point(at, plan)) {
-        if (at < start) continue;
+    for (long at = start; at < limit; ++at) {
         st.at = at;
         long injected = 0;
         sweep_counts c;
@@ -986,12 +928,15 @@ TEST_P(Oom, EveryAllocationPointFailsCleanly) {
     std::vector<std::string> failures;
     const sweep_counts c = sweep_isolated(*it, m, failures);
     for (const auto& f : failures) ADD_FAILURE() << f;
-    std::printf("[ oom      ] %-10s %-10s %5ld allocation points survived (%ld in C++ operator new, %ld while "
+    std::printf("[ oom      ] %-12s %-10s %5ld allocation points survived (%ld in C++ operator new, %ld while "
                 "loading the module, %ld statements failed with SQLITE_NOMEM or their own error, %ld failures of "
-                "optional allocations absorbed); %ld allocations in a fault-free run, %s\n",
+                "optional allocations absorbed); %ld allocations in a fault-free run\n",
                 name.c_str(), m == fault::mode::persistent ? "persistent" : "transient", c.points, c.cxx_points,
-                c.load_failed, c.nomem, c.absorbed, c.total_allocs,
-                describe(sampling_for(c.total_allocs, m)).c_str());
+                c.load_failed, c.nomem, c.absorbed, c.total_allocs);
+    // Every point was failed: one per allocation of the fault-free run.
+    if (failures.empty()) {
+        EXPECT_EQ(c.points, c.total_allocs) << "allocation points failed vs allocations of a fault-free run";
+    }
     // The sweep must really have failed allocations, SQLite's and the module's.
     EXPECT_GT(c.points, 10) << "no allocation point was exercised";
     EXPECT_GT(c.cxx_points, 0) << "no C++ allocation of the module was failed";
@@ -1188,16 +1133,10 @@ TEST(OomHarness, ComparisonNoticesADifferentResult) {
 class Report : public ::testing::Environment {
 public:
     void TearDown() override {
-        for (int m = 0; m < 2; ++m) {
-            const sampling plan = sampling_for(0, m ? fault::mode::persistent : fault::mode::transient);
-            std::printf("[ oom      ] %s: %ld scenarios x allocation points = %ld survived (%ld in C++ operator new)%s\n",
+        for (int m = 0; m < 2; ++m)
+            std::printf("[ oom      ] %s: %ld scenarios x allocation points = %ld survived (%ld in C++ operator new)\n",
                         m ? "persistent" : "transient", grand_totals[m].scenarios, grand_totals[m].points,
-                        grand_totals[m].cxx_points,
-                        plan.stride > 1 ? (", every " + nth(plan.stride) + " point from " +
-                                           std::to_string(plan.first) + " (sanitizer build)")
-                                              .c_str()
-                                        : "");
-        }
+                        grand_totals[m].cxx_points);
     }
 };
 const auto* report_env = ::testing::AddGlobalTestEnvironment(new Report);

@@ -284,9 +284,9 @@ std::string with_checksum(std::string m) {
 bool checksum_ok(const std::string& m) { return get_u64(m, m.size() - 8) == checksum_of(m); }
 
 // A model BLOB written field by field from the format comment in
-// core/summary.cpp (version 2, no covariates, unweighted), with a right length
-// and checksum, so that each content check of the decoder can be met on its
-// own. A cell of one row with response y has origin y, d = (1, 0) and rbar 0;
+// core/summary.cpp (the current version, no covariates, unweighted), with a
+// right length and checksum, so that each content check of the decoder can be
+// met on its own. A cell of one row with response y has origin y, d = (1, 0) and rbar 0;
 // ForgedModelsMatchTheAggregate checks the writer against real models.
 struct forged_cell {
     std::uint8_t kind = 3;  // 1 integer, 2 real, 3 text, 4 blob
@@ -324,7 +324,7 @@ std::string forge_model(const std::vector<forged_cell>& cells, const std::string
                         const std::array<std::uint64_t, 5>& dropped = {}) {
     std::string b("GFm\x01", 4);
     auto put = [&](auto v) { b += le_bytes(&v, sizeof v); };
-    put(std::uint16_t(2)), put(std::uint16_t(0)), put(std::uint64_t(0));
+    put(groupfit::format_version), put(std::uint16_t(0)), put(std::uint64_t(0));
     put(std::uint32_t(0)), put(std::uint32_t(cells.size()));
     for (std::uint64_t d : dropped) put(d);
     for (const forged_cell& c : cells) {

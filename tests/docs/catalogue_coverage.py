@@ -58,7 +58,8 @@ def test_files():
 
 
 def joined_by_plus(between):
-    """`between` is `+ <one computed operand> +` (balanced brackets, no `,` or `;` outside them)."""
+    """`between` is `+ <one computed operand> +`: brackets balanced, no `;` and
+    no `,` `{` `}` outside brackets (so no statement or argument boundary)."""
     b = between.strip()
     if len(b) < 3 or b[0] != "+" or b[-1] != "+":
         return False
@@ -70,9 +71,7 @@ def joined_by_plus(between):
             depth -= 1
             if depth < 0:
                 return False
-        elif c in ",;{}" and depth == 0:
-            return False
-        elif c == ";":
+        elif c == ";" or (c in ",{}" and depth == 0):
             return False
     return depth == 0
 

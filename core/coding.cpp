@@ -33,11 +33,7 @@ coded_levels levels_of(const fit& f) {
 std::size_t coded_levels::find(const std::string& label, const char* option) const {
     for (std::size_t i = 0; i < labels.size(); ++i)
         if (labels[i] == label) return i;
-    std::string list;
-    for (std::size_t i = 0; i < labels.size() && i < 20; ++i) list += (i ? ", " : "") + labels[i];
-    if (labels.size() > 20) list += ", ... (" + std::to_string(labels.size()) + " levels)";
-    throw error(std::string(option) + " names an unknown level '" + label +
-                "' (levels: " + list + ")");
+    throw_unknown_level(option, label, labels);
 }
 
 coding::coding(const fit& f) : coding(levels_of(f), f.opts(), true) {}

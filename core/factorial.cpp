@@ -40,13 +40,6 @@ std::string join(const std::vector<std::string>& parts, const char* sep) {
     return s;
 }
 
-std::string list_of(const std::vector<std::string>& labels) {
-    std::string s;
-    for (std::size_t i = 0; i < labels.size() && i < 20; ++i) s += (i ? ", " : "") + labels[i];
-    if (labels.size() > 20) s += ", ... (" + std::to_string(labels.size()) + " in all)";
-    return s;
-}
-
 /// Orthonormal Helmert columns over L levels (L x (L-1)): every column sums to
 /// zero, and together they span all contrasts of the L levels.
 Eigen::MatrixXd helmert_basis(std::size_t L) {
@@ -538,8 +531,7 @@ public:
             if (means_[i].label == label) return i;
             labels.push_back(means_[i].label);
         }
-        throw error(std::string(option) + " names an unknown level '" + label +
-                    "' (levels: " + list_of(labels) + ")");
+        throw_unknown_level(option, label, labels);
     }
     lin combination(const Eigen::VectorXd& k, bool& ok) const {
         lin f;
@@ -625,8 +617,7 @@ std::vector<coding> factor_codings(const engine& e) {
             std::vector<std::string> all;
             for (int k = 0; k < e.K; ++k)
                 for (const auto& l : e.lab[k]) all.push_back(e.fname[k] + ":" + l);
-            throw error("options: base names an unknown level '" + e.o.base + "' (levels: " +
-                        list_of(all) + ")");
+            throw_unknown_level("options: base", e.o.base, all);
         }
     }
     std::vector<coding> out;
@@ -1098,7 +1089,7 @@ table cross_summary_report(const summary& s, const options& o) {
                       dfm > 0 ? num(dist::f_upper_p(fs, dfm, dfr)) : value{}, num(ll),
                       num(-2 * ll + 2 * kpar), num(-2 * ll + std::log(n) * kpar), value{},
                       integer(e.plain ? 1 : e.K), integer(std::int64_t(empty.size())),
-                      empty.empty() ? value{} : text(list_of(empty)),
+                      empty.empty() ? value{} : text(label_list(empty)),
                       text(std::string("terms=") + terms_name(o.terms) + "; slopes=" +
                            slopes_name(o.slopes))));
     return t;

@@ -12,13 +12,6 @@ namespace groupfit {
 namespace {
 constexpr double nan = std::numeric_limits<double>::quiet_NaN();
 
-std::string level_list(const std::vector<std::string>& labels) {
-    std::string s;
-    for (std::size_t i = 0; i < labels.size() && i < 20; ++i) s += (i ? ", " : "") + labels[i];
-    if (labels.size() > 20) s += ", ... (" + std::to_string(labels.size()) + " levels)";
-    return s;
-}
-
 /// A small square-root-free factor over k columns (T = double or ddouble).
 template <class T>
 struct factor {
@@ -57,8 +50,7 @@ fit::fit(const summary& s, const options& o) : s_(&s), opt_(o), p_(s.covariates(
     for (const auto& name : o.order) {
         auto it = std::find(asc_labels.begin(), asc_labels.end(), name);
         if (it == asc_labels.end())
-            throw error("options: order names an unknown level '" + name +
-                        "' (levels: " + level_list(asc_labels) + ")");
+            throw_unknown_level("options: order", name, asc_labels);
         std::size_t i = it - asc_labels.begin();
         if (used[i]) throw error("options: order names level '" + name + "' twice");
         used[i] = true;
@@ -242,7 +234,7 @@ Eigen::VectorXd fit::at_values() const {
         if (found < 0) {
             std::vector<std::string> cov(names_.begin() + 1, names_.end());
             throw error("options: at names an unknown covariate '" + name + "' (covariates: " +
-                        (cov.empty() ? std::string("none") : level_list(cov)) + ")");
+                        (cov.empty() ? std::string("none") : label_list(cov)) + ")");
         }
         at[found] = v;
     }
@@ -257,8 +249,7 @@ double fit::sigma2() const {
 std::size_t fit::find_level(const std::string& label, const char* where) const {
     for (std::size_t i = 0; i < labels_.size(); ++i)
         if (labels_[i] == label) return i;
-    throw error(where + std::string(" names an unknown level '") + label +
-                "' (levels: " + level_list(labels_) + ")");
+    throw_unknown_level(where, label, labels_);
 }
 
 Eigen::VectorXd fit::d_prime_a(const Eigen::VectorXd& a) const {

@@ -4,6 +4,8 @@
 #include <cmath>
 #include <cstring>
 
+#include "error.hpp"
+
 namespace groupfit {
 
 level level::from_integer(std::int64_t v) {
@@ -36,6 +38,18 @@ level level::from_blob(std::string_view s) {
     l.kind = level_kind::blob;
     l.bytes.assign(s);
     return l;
+}
+
+std::string label_list(const std::vector<std::string>& labels) {
+    std::string s;
+    for (std::size_t i = 0; i < labels.size() && i < 20; ++i) s += (i ? ", " : "") + labels[i];
+    if (labels.size() > 20) s += ", ... (" + std::to_string(labels.size()) + " in all)";
+    return s;
+}
+
+void throw_unknown_level(const std::string& where, const std::string& label,
+                         const std::vector<std::string>& labels) {
+    throw error(where + " names an unknown level '" + label + "' (levels: " + label_list(labels) + ")");
 }
 
 std::string shortest_real(double v) {

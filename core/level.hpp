@@ -11,6 +11,7 @@
 #include <cstdint>
 #include <string>
 #include <string_view>
+#include <vector>
 
 namespace groupfit {
 
@@ -43,6 +44,16 @@ struct level {
 std::strong_ordering compare(const level& a, const level& b);
 inline bool operator<(const level& a, const level& b) { return compare(a, b) < 0; }
 inline bool operator==(const level& a, const level& b) { return compare(a, b) == 0; }
+
+/// Up to 20 labels joined by ", ", then ", ... (N in all)" when there are more:
+/// the list that error messages show.
+std::string label_list(const std::vector<std::string>& labels);
+/// Throws groupfit::error "<where> names an unknown level '<label>' (levels:
+/// <label_list>)": an option or a weights text naming a level that the model
+/// does not have. `where` says what named it ("options: base", "weights: a
+/// contrast", ...).
+[[noreturn]] void throw_unknown_level(const std::string& where, const std::string& label,
+                                      const std::vector<std::string>& labels);
 
 /// Shortest decimal text that reads back as exactly the same double. Locale
 /// independent (std::to_chars).

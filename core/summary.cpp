@@ -57,9 +57,9 @@ template double include_row<double>(int, double*, double*, double*, double, int)
 template ddouble include_row<ddouble>(int, ddouble*, ddouble*, ddouble*, ddouble, int);
 
 void factor_of_gram(int k, const ddouble* g, ddouble* d, ddouble* rbar, ddouble* a) {
-    // a: the working copy, normalised (the running sums of add_row keep their
-    // low parts unnormalised only in the sense of quick_two_sum's precondition
-    // being met approximately; two_sum makes them exact pairs again).
+    // a: the working copy that the elimination overwrites. add_row and the
+    // merges keep every sum a normalised pair; two_sum makes sure of it for a
+    // matrix from anywhere else (it changes no value).
     const int n = k * (k + 1) / 2;
     for (int e = 0; e < n; ++e) a[e] = dd::two_sum(g[e].hi, g[e].lo);
     for (int i = 0; i < k; ++i) {

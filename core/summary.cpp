@@ -57,9 +57,9 @@ template double include_row<double>(int, double*, double*, double*, double, int)
 template ddouble include_row<ddouble>(int, ddouble*, ddouble*, ddouble*, ddouble, int);
 
 void factor_of_gram(int k, const ddouble* g, ddouble* d, ddouble* rbar, ddouble* a) {
-    // a: the working copy that the elimination overwrites. add_row and the
-    // merges keep every sum a normalised pair; two_sum makes sure of it for a
-    // matrix from anywhere else (it changes no value).
+    // a: the working copy that the elimination overwrites, normalised by
+    // two_sum (no value changes): add_row leaves its sums unnormalised
+    // between two renormalisations (sum2_add).
     const int n = k * (k + 1) / 2;
     for (int e = 0; e < n; ++e) a[e] = dd::two_sum(g[e].hi, g[e].lo);
     for (int i = 0; i < k; ++i) {
@@ -363,59 +363,99 @@ std::size_t summary::cell_for(level_kind kind, const void* data, std::size_t len
     return last_cell_ = c;
 }
 
+namespace {
+
+/// Rows a cell takes between two normalisations of its sums (see sum2_add).
+constexpr std::int64_t renormalise_every = 64;
+
+/// acc += ph + pl with acc an unnormalised pair: the rounding error of the
+/// high-part sum (two-sum, exact) and pl go to acc.lo, which is folded back
+/// into acc.hi every renormalise_every rows of the cell. This is the cascaded
+/// summation Sum2 of Ogita, Rump and Oishi (2005), whose result is as accurate
+/// as if it were summed in twice the working precision; folding every B rows
+/// keeps the low part's own rounding at about B 2^-106 of the sum's terms.
+inline void sum2_add(ddouble& acc, double ph, double pl) {
+    const double s = acc.hi + ph;
+    const double bb = s - acc.hi;
+    const double err = (acc.hi - (s - bb)) + (ph - bb);
+    acc.hi = s;
+    acc.lo += err + pl;
+}
+
+/// Makes every pair of g[0..n) normalised (|lo| <= ulp(hi)/2); no value changes.
+inline void normalise(ddouble* g, std::size_t n) {
+    for (std::size_t e = 0; e < n; ++e) g[e] = dd::two_sum(g[e].hi, g[e].lo);
+}
+
+/// Folds one row into a cell's matrix g (origin o): with z = (1, x - o), the
+/// shifts exact as double-doubles (two-difference), and u = w z, g += u z'
+/// over the upper triangle. Each product is formed as two-product of the high
+/// parts plus the two cross terms (the low-times-low term is below 2^-106 of
+/// it) and summed unnormalised by sum2_add. Unweighted, g(0,0) is a count
+/// (exact below 2^53) and g(0,j) sums the shifts. K = p + 2 fixed at compile
+/// time unrolls it; K = 0 takes k at run time and its z, u from `work` (2k).
+template <int K, bool Weighted>
+inline void add_to_gram(int k_run, ddouble* g, const double* o, const double* values, double w,
+                        ddouble* work) {
+    const int k = K ? K : k_run;
+    ddouble local[K ? 2 * K : 1];
+    ddouble* z = K ? local : work;
+    ddouble* u = Weighted ? z + k : z;
+    z[0] = ddouble(1.0);
+    for (int j = 1; j < k; ++j) z[j] = dd::two_diff(values[j - 1], o[j - 1]);
+    int e = 0;
+    if constexpr (Weighted) {
+        for (int j = 0; j < k; ++j) u[j] = z[j] * w;
+    } else {
+        g[0].hi += 1.0;
+        for (int j = 1; j < k; ++j) sum2_add(g[j], z[j].hi, z[j].lo);
+        e = k;
+    }
+    for (int i = Weighted ? 0 : 1; i < k; ++i)
+        for (int j = i; j < k; ++j, ++e) {
+            ddouble pr = dd::two_prod(u[i].hi, z[j].hi);
+            pr.lo += u[i].hi * z[j].lo + u[i].lo * z[j].hi;
+            sum2_add(g[e], pr.hi, pr.lo);
+        }
+}
+
+template <bool Weighted>
+void add_to_gram_any(int k, ddouble* g, const double* o, const double* values, double w,
+                     ddouble* work) {
+    switch (k) {
+    case 2: return add_to_gram<2, Weighted>(k, g, o, values, w, work);
+    case 3: return add_to_gram<3, Weighted>(k, g, o, values, w, work);
+    case 4: return add_to_gram<4, Weighted>(k, g, o, values, w, work);
+    case 5: return add_to_gram<5, Weighted>(k, g, o, values, w, work);
+    case 6: return add_to_gram<6, Weighted>(k, g, o, values, w, work);
+    default: return add_to_gram<0, Weighted>(k, g, o, values, w, work);
+    }
+}
+
+}  // namespace
+
 void summary::add_row(std::size_t c, const double* values, double w) {
     if (total_ >= max_rows) [[unlikely]] throw_too_many_rows();
     if (!gram_ok_) [[unlikely]] ensure_gram();
     const int k = p_ + 2;
     double* o = origin(c);
     ddouble* g = gram(c);
-    if (g[0].hi == 0.0)  // the cell's first row (weights are positive)
+    if (n_[c] == 0)  // the cell's first row
         for (int j = 0; j <= p_; ++j) o[j] = values[j];
-    // z = (1, x - origin) exactly, as double-doubles; u = w z.
-    ddouble* z = scratch_.data();
-    ddouble* u = weighted_ ? z + k : z;
-    z[0] = ddouble(1.0);
-    for (int j = 1; j < k; ++j) z[j] = dd::two_diff(values[j - 1], o[j - 1]);
-    if (weighted_)
-        for (int j = 0; j < k; ++j) u[j] = z[j] * w;
-    // g += u z' (upper triangle). Each product is summed unnormalised
-    // (p.hi + p.lo with |p.lo| about ulp(p.hi)), which the sum's own
-    // normalisation absorbs. Mostly every shift is exact in one double (the
-    // value and the origin are within a factor of two, or the difference
-    // needs no more bits); then a product of two shifts is two_prod exactly.
-    auto add = [](ddouble& acc, ddouble p) {
-        const ddouble t = dd::two_sum(acc.hi, p.hi);
-        acc = dd::quick_two_sum(t.hi, t.lo + (acc.lo + p.lo));
-    };
-    bool single = !weighted_;
-    for (int j = 1; j < k; ++j) single &= z[j].lo == 0.0;
-    if (single) {
-        add(g[0], ddouble(1.0));
-        for (int j = 1; j < k; ++j) add(g[j], z[j]);
-        for (int i = 1, e = k; i < k; ++i)
-            for (int j = i; j < k; ++j, ++e) add(g[e], dd::two_prod(z[i].hi, z[j].hi));
-    } else {
-        for (int i = 0, e = 0; i < k; ++i)
-            for (int j = i; j < k; ++j, ++e) {
-                ddouble pr = dd::two_prod(u[i].hi, z[j].hi);
-                pr.lo += u[i].hi * z[j].lo + u[i].lo * z[j].hi;
-                add(g[e], pr);
-            }
-    }
-    ++n_[c];
+    if (weighted_) add_to_gram_any<true>(k, g, o, values, w, scratch_.data());
+    else add_to_gram_any<false>(k, g, o, values, w, scratch_.data());
+    if (++n_[c] % renormalise_every == 0) normalise(g, stride());
     ++total_;
     if (weighted_) log_w_[c] += std::log(w);
     stale_ = true;
     // Finite values whose squares overflow (around 1e154 and beyond) make the
     // sums infinite or NaN: an error at this row, never a model that its own
     // reports would reject. The diagonal bounds the rest of the matrix
-    // (|u_i z_j| <= max(u_i z_i, u_j z_j)), so it is the one checked per row;
-    // settle checks every factor entry as well.
-    std::uint64_t bad = nonfinite_bit(log_w_[c]);
-    for (int i = 0; i < k; ++i) {
-        const ddouble& v = g[detail::gram_index(k, i, i)];
-        bad |= nonfinite_bit(v.hi) | nonfinite_bit(v.lo);
-    }
+    // (|u_i z_j| <= max(u_i z_i, u_j z_j)), and a low part is finite while
+    // its high part is, so the diagonal's high parts are the ones checked per
+    // row; settle checks every factor entry as well.
+    std::uint64_t bad = weighted_ ? nonfinite_bit(log_w_[c]) : 0;
+    for (int i = 0; i < k; ++i) bad |= nonfinite_bit(g[detail::gram_index(k, i, i)].hi);
     if (bad >> 63) [[unlikely]] throw_overflow();
 }
 
@@ -451,6 +491,7 @@ void summary::merge_gram(std::size_t into, const double* fo, const ddouble* fg,
     const int k = p_ + 2;
     double* o = origin(into);
     ddouble* g = gram(into);
+    normalise(g, stride());  // the dd operations below take normalised pairs
     if (n_[into] == 0) {
         std::copy(fo, fo + p_ + 1, o);
         std::copy(fg, fg + stride(), g);
@@ -489,16 +530,20 @@ void summary::merge(const summary& other, const limits& lim) {
     }
     ensure_gram();
     const int k = p_ + 2;
-    std::vector<ddouble> tmp(other.gram_ok_ ? 0 : stride());
+    std::vector<ddouble> tmp(stride());  // the other cell's matrix, normalised
     for (std::size_t c = 0; c < other.cells(); ++c) {
         const level& lv = other.levels_[c];
         const level_bytes b = bytes_of(lv);
         const std::uint64_t h = level_hash(lv.kind, b.data, b.len);
         std::size_t into = find_cell(lv.kind, b.data, b.len, h);
         if (into == npos) into = add_cell(lv, h, lim);
-        const ddouble* og = other.gram_ok_ ? &other.gram_[c * stride()] : tmp.data();
-        if (!other.gram_ok_) detail::gram_of_factor(k, other.cell_d(c), other.cell_rbar(c), tmp.data());
-        merge_gram(into, other.cell_origin(c), og, other.n_[c], other.log_w_[c]);
+        if (other.gram_ok_) {
+            std::copy_n(&other.gram_[c * stride()], stride(), tmp.data());
+            normalise(tmp.data(), stride());
+        } else {
+            detail::gram_of_factor(k, other.cell_d(c), other.cell_rbar(c), tmp.data());
+        }
+        merge_gram(into, other.cell_origin(c), tmp.data(), other.n_[c], other.log_w_[c]);
     }
     merge_dropped(other.dropped_);
 }

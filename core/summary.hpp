@@ -193,7 +193,8 @@ private:
     /// Forms every cell's matrix from its factor (a model read from a BLOB
     /// before the first change); no-op when the matrices are current.
     void ensure_gram();
-    /// Adds a cell matrix g (origin o, rows, log weight sum) into cell `into`.
+    /// Adds a cell matrix g (origin o, rows, log weight sum; normalised
+    /// pairs) into cell `into`.
     void merge_gram(std::size_t into, const double* o, const ddouble* g, std::int64_t rows,
                     double log_w);
     void merge_dropped(const std::array<std::int64_t, drop_reason_count>& other);
@@ -210,6 +211,8 @@ private:
     std::vector<double> origin_;  // per cell: origin[p+1]
     // Per cell: the packed upper triangle of the matrix, row by row
     // (gram_index). Current for every cell when gram_ok_; empty otherwise.
+    // add_row leaves the pairs unnormalised (|lo| up to about 64 ulp(hi))
+    // between renormalisations; every reader normalises its copy first.
     std::vector<ddouble> gram_;
     bool gram_ok_ = true;
     // Per cell: d[p+2] then rbar[(p+2)(p+1)/2]; current unless stale_ (made

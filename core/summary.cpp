@@ -5,6 +5,7 @@
 #include <cmath>
 #include <cstring>
 #include <limits>
+#include <stdexcept>
 
 #include "error.hpp"
 
@@ -324,18 +325,29 @@ std::size_t summary::cell_for(const level& lv, const limits& lim) {
     }
 }
 
+namespace {
+/// A real level as its cell is keyed: a whole number is the integer level
+/// (level::from_real; `whole` holds it and kind/data are redirected to it).
+/// The BLOB format stores finite numbers only (its decoder rejects the rest):
+/// an infinite level would make a model that no report can read.
+void canonical_real(level_kind& kind, const void*& data, std::int64_t& whole) {
+    const double v = *static_cast<const double*>(data);
+    if (!std::isfinite(v)) [[unlikely]]
+        throw error(std::string("a real level must be finite, got ") +
+                    (std::isnan(v) ? "NaN" : v > 0 ? "Inf" : "-Inf"));
+    const level lv = level::from_real(v);
+    if (lv.kind == level_kind::integer) {
+        kind = level_kind::integer;
+        whole = lv.i;
+        data = &whole;
+    }
+}
+}  // namespace
+
 std::size_t summary::cell_for(level_kind kind, const void* data, std::size_t len,
                               const limits& lim) {
-    if (kind == level_kind::real) {
-        const double v = *static_cast<const double*>(data);
-        // The BLOB format stores finite numbers only (its decoder rejects the
-        // rest): an infinite level would make a model that no report can read.
-        if (!std::isfinite(v)) [[unlikely]]
-            throw error(std::string("a real level must be finite, got ") +
-                        (std::isnan(v) ? "NaN" : v > 0 ? "Inf" : "-Inf"));
-        const level lv = level::from_real(v);
-        if (lv.kind == level_kind::integer) return cell_for(lv, lim);
-    }
+    std::int64_t whole;
+    if (kind == level_kind::real) canonical_real(kind, data, whole);
     // The level of the previous row, compared without touching levels_ when
     // short (rows often come sorted or clustered by level).
     if (len <= 8) {
@@ -344,7 +356,11 @@ std::size_t summary::cell_for(level_kind kind, const void* data, std::size_t len
     } else if (last_tag_ != 0 && same_level(levels_[last_cell_], kind, data, len)) {
         return last_cell_;
     }
-    const std::uint64_t h = level_hash(kind, data, len);
+    return cell_for_hashed(kind, data, len, level_hash(kind, data, len), lim);
+}
+
+std::size_t summary::cell_for_hashed(level_kind kind, const void* data, std::size_t len,
+                                     std::uint64_t h, const limits& lim) {
     std::size_t c = find_cell(kind, data, len, h);
     if (c == npos) {
         const auto* bytes = static_cast<const char*>(data);
@@ -433,6 +449,61 @@ void add_to_gram_any(int k, ddouble* g, const double* o, const double* values, d
 }
 
 }  // namespace
+
+void row_batch::push(level_kind kind, const void* data, std::size_t len, const double* values,
+                     double w) {
+    if (full()) throw std::logic_error("row_batch::push on a full batch");
+    std::int64_t whole;
+    if (kind == level_kind::real) canonical_real(kind, data, whole);
+    const int r = n_;
+    kind_[r] = kind;
+    len_[r] = len;
+    if (len <= 8) {
+        word_[r] = 0;
+        if (len > 0) std::memcpy(&word_[r], data, len);
+    } else {
+        word_[r] = long_.size();
+        long_.append(static_cast<const char*>(data), len);
+    }
+    std::copy_n(values, p_ + 1, &values_[static_cast<std::size_t>(r) * (p_ + 1)]);
+    w_[r] = w;
+    ++n_;
+}
+
+void summary::add_batch(row_batch& b, const limits& lim, new_cell_hook on_new_cell,
+                        void* context) {
+    struct clear_on_exit {
+        row_batch& b;
+        ~clear_on_exit() { b.clear(); }
+    } clear{b};
+    if (b.p_ != p_) throw std::logic_error("summary::add_batch with a batch of another shape");
+    const int n = b.n_;
+    std::array<const void*, row_batch::capacity> data;
+    std::array<std::uint64_t, row_batch::capacity> hash;
+    std::array<std::size_t, row_batch::capacity> cell;
+    // 1. Hash every level and ask for its first slot.
+    for (int r = 0; r < n; ++r) {
+        data[r] = b.len_[r] <= 8 ? static_cast<const void*>(&b.word_[r]) : b.long_.data() + b.word_[r];
+        hash[r] = level_hash(b.kind_[r], data[r], b.len_[r]);
+        if (!slots_.empty()) __builtin_prefetch(&slots_[hash[r] & (slots_.size() - 1)]);
+    }
+    // 2. Find (or make) every cell, in row order, and ask for its state.
+    for (int r = 0; r < n; ++r) {
+        const std::size_t before = cells();
+        cell[r] = cell_for_hashed(b.kind_[r], data[r], b.len_[r], hash[r], lim);
+        if (cells() != before && on_new_cell) on_new_cell(context, *this, cell[r]);
+        if (gram_ok_) {
+            const ddouble* g = gram(cell[r]);
+            for (std::size_t e = 0; e < stride(); e += 4) __builtin_prefetch(g + e, 1);
+            __builtin_prefetch(g + stride() - 1, 1);
+        }
+        __builtin_prefetch(origin(cell[r]), 1);
+        __builtin_prefetch(&n_[cell[r]], 1);
+    }
+    // 3. Add the rows.
+    for (int r = 0; r < n; ++r)
+        add_row(cell[r], &b.values_[static_cast<std::size_t>(r) * (p_ + 1)], b.w_[r]);
+}
 
 void summary::add_row(std::size_t c, const double* values, double w) {
     if (total_ >= max_rows) [[unlikely]] throw_too_many_rows();

@@ -95,6 +95,44 @@ void factor_of_gram(int k, const ddouble* g, ddouble* d, ddouble* rbar, ddouble*
 void gram_of_factor(int k, const ddouble* d, const ddouble* rbar, ddouble* g);
 }  // namespace detail
 
+class summary;
+
+/// Rows held back to be added together by summary::add_batch, which first
+/// hashes every row's level and asks the memory for its slot, then looks the
+/// levels up and asks for each cell's state, and only then adds the rows: with
+/// many levels (state beyond the CPU caches) the memory waits of the rows
+/// overlap instead of following one another. The batch owns copies of its
+/// levels and values.
+class row_batch {
+public:
+    static constexpr int capacity = 16;
+    explicit row_batch(int covariates)
+        : p_(covariates), values_(static_cast<std::size_t>(capacity) * (covariates + 1)) {}
+    int covariates() const { return p_; }
+    int size() const { return n_; }
+    bool empty() const { return n_ == 0; }
+    bool full() const { return n_ == capacity; }
+    /// Copies a row: its level as raw bytes (as summary::cell_for takes them),
+    /// values x1..xp then y, and its weight. Throws groupfit::error for a real
+    /// level that is not finite (as cell_for does); std::logic_error when full.
+    void push(level_kind kind, const void* data, std::size_t len, const double* values, double w);
+    void clear() {
+        n_ = 0;
+        long_.clear();
+    }
+
+private:
+    friend class summary;
+    int p_;
+    int n_ = 0;
+    std::array<level_kind, capacity> kind_{};
+    std::array<std::size_t, capacity> len_{};
+    std::array<std::uint64_t, capacity> word_{};  // the bytes when len <= 8, else the offset in long_
+    std::array<double, capacity> w_{};
+    std::string long_;  // levels of more than 8 bytes, one after another
+    std::vector<double> values_;  // capacity rows of p + 1
+};
+
 class summary {
 public:
     summary() = default;
@@ -116,6 +154,20 @@ public:
     /// like level::from_real), for text and blobs to the bytes. The hot path of
     /// the aggregate: the last level seen is compared before any hashing.
     std::size_t cell_for(level_kind kind, const void* data, std::size_t len, const limits& lim);
+
+    /// Adds the rows of a batch in their order, with the same result, bit for
+    /// bit, as cell_for and add_row row by row; `on_new_cell` (when given) is
+    /// called with each cell the batch creates, before any of its rows is
+    /// added, and may throw. Throws like cell_for and add_row; after a throw
+    /// the summary is unspecified. The batch is emptied either way.
+    /// Whether rows should go through add_batch: when the cells' matrices
+    /// outgrow what the CPU caches near the core hold (256 KiB; the levels'
+    /// state, (p+2)(p+3)/2 double-doubles per cell), so that rows mostly wait
+    /// for memory. Below that, a row at a time is faster.
+    bool wants_batches() const { return cells() * stride() * sizeof(ddouble) > (256u << 10); }
+    using new_cell_hook = void (*)(void* context, const summary& s, std::size_t cell);
+    void add_batch(row_batch& batch, const limits& lim, new_cell_hook on_new_cell = nullptr,
+                   void* context = nullptr);
 
     /// Adds one row to a cell: values holds x1..xp then y (raw, finite); w > 0.
     /// Throws groupfit::error when the cell's factor overflows (values around
@@ -181,6 +233,10 @@ private:
     double* origin(std::size_t c) { return &origin_[c * (p_ + 1)]; }
     ddouble* gram(std::size_t c) { return &gram_[c * stride()]; }
     std::size_t add_cell(const level& lv, std::uint64_t hash, const limits& lim);
+    /// cell_for after its shortcut: the cell of a level (real levels already
+    /// canonical) whose hash is h, made when new; remembered as the last one.
+    std::size_t cell_for_hashed(level_kind kind, const void* data, std::size_t len,
+                                std::uint64_t h, const limits& lim);
     /// The cell of a level given as raw bytes (see cell_for) and its hash, or
     /// npos when the summary has no such cell.
     std::size_t find_cell(level_kind kind, const void* data, std::size_t len,

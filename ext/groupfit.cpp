@@ -199,8 +199,15 @@ inline bool numeric_arg(sqlite3_value* v, const char* role, int covariate, int p
 ** only frees it. */
 struct agg_state {
     summary* s;
+    groupfit::row_batch* batch;  // rows not yet added (models with many levels)
     bool failed;
 };
+
+/* The aggregate's hook for new cells: every cell must have the factors of
+** cell 0 (plain, or crossed with the same arity). */
+void check_new_cell(void*, const summary& s, std::size_t cell) {
+    if (cell > 0) groupfit::check_same_factors(s, cell);
+}
 
 /* Runs one xStep body; an exception marks the aggregate failed. */
 template <class F>
@@ -261,22 +268,33 @@ void fit_step(sqlite3_context* ctx, int argc, sqlite3_value** argv, bool weighte
         if (gtype == SQLITE_NULL) return s.drop(groupfit::drop_reason::null_group);
         if (null_x) return s.drop(groupfit::drop_reason::null_covariate);
         if (w == 0.0) return s.drop(groupfit::drop_reason::zero_weight);
-        std::size_t cell;
-        const std::size_t cells_before = s.cells();
+        groupfit::level_kind kind;
+        const void* data;
+        std::size_t len;
+        sqlite3_int64 i;
+        double r;
         if (gtype == SQLITE_INTEGER) {
-            const sqlite3_int64 i = sqlite3_value_int64(g);
-            cell = s.cell_for(groupfit::level_kind::integer, &i, sizeof i, lim);
+            i = sqlite3_value_int64(g);
+            kind = groupfit::level_kind::integer, data = &i, len = sizeof i;
         } else if (gtype == SQLITE_FLOAT) {
-            const double r = sqlite3_value_double(g);
-            cell = s.cell_for(groupfit::level_kind::real, &r, sizeof r, lim);
-        } else if (gtype == SQLITE_TEXT) {
-            const std::string_view t = text_of(g);
-            cell = s.cell_for(groupfit::level_kind::text, t.data(), t.size(), lim);
+            r = sqlite3_value_double(g);
+            kind = groupfit::level_kind::real, data = &r, len = sizeof r;
         } else {
-            const std::string_view b = blob_of(g);
-            cell = s.cell_for(groupfit::level_kind::blob, b.empty() ? "" : b.data(), b.size(), lim);
+            const std::string_view t = gtype == SQLITE_TEXT ? text_of(g) : blob_of(g);
+            kind = gtype == SQLITE_TEXT ? groupfit::level_kind::text : groupfit::level_kind::blob;
+            data = t.empty() ? "" : t.data(), len = t.size();
         }
-        if (s.cells() != cells_before && cell > 0) groupfit::check_same_factors(s, cell);
+        // With many levels the rows go through a batch (summary::add_batch),
+        // which overlaps their memory waits; the result is the same.
+        if (st.batch || s.wants_batches()) {
+            if (!st.batch) st.batch = new groupfit::row_batch(p);
+            st.batch->push(kind, data, len, vals, w);
+            if (st.batch->full()) s.add_batch(*st.batch, lim, check_new_cell);
+            return;
+        }
+        const std::size_t cells_before = s.cells();
+        const std::size_t cell = s.cell_for(kind, data, len, lim);
+        if (s.cells() != cells_before) check_new_cell(nullptr, s, cell);
         s.add_row(cell, vals, w);
     });
 }
@@ -308,10 +326,13 @@ void merge_step(sqlite3_context* ctx, int, sqlite3_value** argv) noexcept {
 void model_final(sqlite3_context* ctx, const char* fn) noexcept {
     auto* st = static_cast<agg_state*>(sqlite3_aggregate_context(ctx, 0));
     std::unique_ptr<summary> s(st ? st->s : nullptr);
-    if (st) st->s = nullptr;
+    std::unique_ptr<groupfit::row_batch> batch(st ? st->batch : nullptr);
+    if (st) st->s = nullptr, st->batch = nullptr;
     if (st && st->failed) return;
     if (!s) return sqlite3_result_null(ctx);
     guarded(ctx, fn, [&] {
+        if (batch && !batch->empty()) s->add_batch(*batch, config_of(ctx)->lim, check_new_cell);
+        batch.reset();
         // Written straight into SQLite's buffer, which SQLite then owns; the
         // summary is freed first, so memory never holds it and two BLOBs.
         const std::size_t n = s->serialized_size();

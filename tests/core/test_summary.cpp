@@ -333,3 +333,81 @@ TEST(Summary, RowCountsStopAt2To53) {
         EXPECT_EQ(s.dropped_total(), std::int64_t(two53));
     }
 }
+
+// The batched path (summary::add_batch, used by the aggregate once a model's
+// state outgrows the caches) must give the summary that row-at-a-time adding
+// gives, bit for bit: the same rows, in the same order per cell, through the
+// same arithmetic (an identity of our own design, checked byte for byte on
+// the BLOBs). Levels of every kind: integers, whole reals (keyed as
+// integers), fractional reals, short and long texts, blobs; new levels
+// arriving inside a batch, a level repeated within one batch, weights.
+TEST(Summary, BatchedRowsGiveTheSameModelBitForBit) {
+    for (const bool weighted : {false, true}) {
+        for (const int p : {0, 2, 5, 9}) {
+            std::mt19937_64 rng(17 + p);
+            std::normal_distribution<double> nd;
+            limits lim;
+            summary one(p, weighted), batched(p, weighted);
+            row_batch batch(p);
+            std::size_t hooked = 0;
+            auto hook = [](void* n, const summary&, std::size_t) { ++*static_cast<std::size_t*>(n); };
+            std::vector<double> v(p + 1);
+            for (int r = 0; r < 5000; ++r) {
+                const int g = static_cast<int>(rng() % 700);
+                for (int j = 0; j < p; ++j) v[j] = 50 + 10 * nd(rng) + (r % 7) * 1e-3;
+                v[p] = 0.1 * g + (p ? 2 * v[0] : 0) + nd(rng);
+                const double w = weighted ? 0.5 + (rng() % 100) / 37.0 : 1.0;
+                const std::int64_t i = g;
+                const double x = g % 3 == 0 ? g : g + 0.25;  // whole reals are integer levels
+                const std::string t = g % 2 ? "s" + std::to_string(g) : "a-longer-level-" + std::to_string(g);
+                level_kind kind;
+                const void* data;
+                std::size_t len;
+                switch (g % 4) {
+                case 0: kind = level_kind::integer, data = &i, len = sizeof i; break;
+                case 1: kind = level_kind::real, data = &x, len = sizeof x; break;
+                case 2: kind = level_kind::text, data = t.data(), len = t.size(); break;
+                default: kind = level_kind::blob, data = t.data(), len = t.size(); break;
+                }
+                one.add_row(one.cell_for(kind, data, len, lim), v.data(), w);
+                batch.push(kind, data, len, v.data(), w);
+                if (batch.full()) batched.add_batch(batch, lim, hook, &hooked);
+                EXPECT_TRUE(!batch.full());
+            }
+            batched.add_batch(batch, lim, hook, &hooked);
+            EXPECT_TRUE(batch.empty());
+            EXPECT_EQ(hooked, batched.cells());
+            EXPECT_EQ(batched.cells(), one.cells());
+            EXPECT_EQ(batched.serialize(), one.serialize()) << "p=" << p << " weighted=" << weighted;
+        }
+    }
+}
+
+TEST(Summary, BatchedRowsKeepTheChecks) {
+    limits lim;
+    lim.max_levels = 3;
+    summary s(0, false);
+    row_batch b(0);
+    const double y = 1.0;
+    for (std::int64_t g = 0; g < 4; ++g) b.push(level_kind::integer, &g, sizeof g, &y, 1.0);
+    EXPECT_EQ(error_of([&] { s.add_batch(b, lim); }),
+              "too many levels in the grouping argument: the limit is 3 (raise it with "
+              "groupfit_limit('levels', N))");
+    EXPECT_TRUE(b.empty());  // emptied even when it throws
+    const double inf = std::numeric_limits<double>::infinity();
+    EXPECT_EQ(error_of([&] { b.push(level_kind::real, &inf, sizeof inf, &y, 1.0); }),
+              "a real level must be finite, got Inf");
+    const double big[] = {1e200}, small[] = {-1e200};
+    summary t(0, false);
+    std::int64_t g = 1;
+    b.push(level_kind::integer, &g, sizeof g, big, 1.0);
+    b.push(level_kind::integer, &g, sizeof g, small, 1.0);
+    EXPECT_EQ(error_of([&] { t.add_batch(b, limits{}); }),
+              "values too large for a model: a sum of squares overflowed (rescale the response, "
+              "weights or covariates)");
+    // Misuse of the API (not user input) is a logic error.
+    while (!b.full()) b.push(level_kind::integer, &g, sizeof g, &y, 1.0);
+    EXPECT_THROW(b.push(level_kind::integer, &g, sizeof g, &y, 1.0), std::logic_error);
+    summary two(2, false);
+    EXPECT_THROW(two.add_batch(b, limits{}), std::logic_error);
+}

@@ -1735,6 +1735,43 @@ TEST(Scale, HundredThousandLevelsHitTheCapUnlessRaised) {
     EXPECT_GT(db.scalar(q).i, 100000);
 }
 
+// A model whose state outgrows the caches takes its rows in batches (the
+// aggregate switches once the levels' matrices pass 256 KiB: about 2,730
+// levels at one covariate; here 4,001 levels and a row count that is not a
+// multiple of the batch, so the final step adds a partial batch). The results
+// must still equal plain SQL aggregates level by level (common practice: a
+// level's n and mean), and the checks made on new cells still hold.
+TEST(Scale, ManyLevelsGoThroughBatchesWithTheSameResults) {
+    database db;
+    db.exec("CREATE TABLE m(i INTEGER, g TEXT, y REAL, x REAL)");
+    db.exec("WITH RECURSIVE c(i) AS (SELECT 0 UNION ALL SELECT i + 1 FROM c WHERE i < 40002) "
+            "INSERT INTO m SELECT i, 'level-' || (i * 7919 % 4001), (i * 104729 % 1009) / 10.0 "
+            "+ (i * 7919 % 4001) / 100.0, (i * 31 % 997) / 100.0 FROM c");
+    auto lv = db.query("SELECT level, n, mean FROM groupfit_levels((SELECT groupfit(y, g, x) FROM m)) "
+                       "ORDER BY level");
+    auto ref = db.query("SELECT g, count(*), avg(y) FROM m GROUP BY g ORDER BY g");
+    ASSERT_EQ(lv.rows.size(), 4001u);
+    ASSERT_EQ(ref.rows.size(), 4001u);
+    for (std::size_t i = 0; i < ref.rows.size(); ++i) {
+        EXPECT_EQ(lv.rows[i][0].s, ref.rows[i][0].s);
+        EXPECT_EQ(lv.rows[i][1].i, ref.rows[i][1].i);
+        EXPECT_TRUE(close(lv.rows[i][2].d, ref.rows[i][2].d, 1e-13)) << ref.rows[i][0].s;
+    }
+    // The common slope is the pooled within-level slope (common practice).
+    auto slope = db.scalar(
+        "WITH a AS (SELECT g, avg(x) mx, avg(y) my FROM m GROUP BY g) "
+        "SELECT sum((x - mx) * (y - my)) / sum((x - mx) * (x - mx)) FROM m JOIN a USING (g)");
+    auto c = db.scalar("SELECT estimate FROM groupfit_coef((SELECT groupfit(y, g, x) FROM m), "
+                       "'names=g, x') WHERE term = 'x'");
+    EXPECT_TRUE(close(c.d, slope.d, 1e-10)) << c.d << " vs " << slope.d;
+    EXPECT_EQ(db.scalar("SELECT rows_used FROM groupfit_summary((SELECT groupfit(y, g, x) FROM m))").i,
+              40003);
+    // A plain level after 4,000 crossed ones: found inside a batch.
+    EXPECT_EQ(db.error("SELECT groupfit(y, iif(i < 40000, groupfit_cross(g, i % 2), 'plain')) FROM m"),
+              "groupfit: the grouping mixes groupfit_cross cells with plain values (level plain); give "
+              "every row a groupfit_cross of the same factors");
+}
+
 // A merge over models of mismatched shape inside a GROUP BY fails for the
 // segment that mixes them, with the shape named.
 TEST(Scale, MismatchedMergeInsideGroupByIsAnError) {

@@ -104,7 +104,10 @@ void gram_of_factor(int k, const ddouble* d, const ddouble* rbar, ddouble* g) {
 }  // namespace detail
 
 summary::summary(int covariates, bool weighted)
-    : p_(covariates), weighted_(weighted), scratch_(2 * (static_cast<std::size_t>(covariates) + 2)) {}
+    : p_(covariates),
+      weighted_(weighted),
+      scratch_(2 * (static_cast<std::size_t>(covariates) + 2)),
+      row_scratch_(4 * (static_cast<std::size_t>(covariates) + 2)) {}
 
 std::int64_t summary::rows_used() const { return total_; }
 
@@ -409,35 +412,47 @@ inline void normalise(ddouble* g, std::size_t n) {
 /// parts plus the two cross terms (the low-times-low term is below 2^-106 of
 /// it) and summed unnormalised by sum2_add. Unweighted, g(0,0) is a count
 /// (exact below 2^53) and g(0,j) sums the shifts. K = p + 2 fixed at compile
-/// time unrolls it; K = 0 takes k at run time and its z, u from `work` (2k).
+/// time unrolls it (its scratch on the stack, left uninitialised); K = 0
+/// takes k at run time and its scratch (4k doubles) from `work`.
 template <int K, bool Weighted>
 inline void add_to_gram(int k_run, ddouble* g, const double* o, const double* values, double w,
-                        ddouble* work) {
+                        double* work) {
     const int k = K ? K : k_run;
-    ddouble local[K ? 2 * K : 1];
-    ddouble* z = K ? local : work;
-    ddouble* u = Weighted ? z + k : z;
-    z[0] = ddouble(1.0);
-    for (int j = 1; j < k; ++j) z[j] = dd::two_diff(values[j - 1], o[j - 1]);
+    double local[K ? 4 * K : 1];
+    double* zh = K ? local : work;
+    double* zl = zh + k;
+    double* uh = Weighted ? zl + k : zh;
+    double* ul = Weighted ? uh + k : zl;
+    zh[0] = 1.0;
+    zl[0] = 0.0;
+    for (int j = 1; j < k; ++j) {
+        const ddouble d = dd::two_diff(values[j - 1], o[j - 1]);
+        zh[j] = d.hi;
+        zl[j] = d.lo;
+    }
     int e = 0;
     if constexpr (Weighted) {
-        for (int j = 0; j < k; ++j) u[j] = z[j] * w;
+        for (int j = 0; j < k; ++j) {
+            const ddouble u = ddouble(zh[j], zl[j]) * w;
+            uh[j] = u.hi;
+            ul[j] = u.lo;
+        }
     } else {
         g[0].hi += 1.0;
-        for (int j = 1; j < k; ++j) sum2_add(g[j], z[j].hi, z[j].lo);
+        for (int j = 1; j < k; ++j) sum2_add(g[j], zh[j], zl[j]);
         e = k;
     }
     for (int i = Weighted ? 0 : 1; i < k; ++i)
         for (int j = i; j < k; ++j, ++e) {
-            ddouble pr = dd::two_prod(u[i].hi, z[j].hi);
-            pr.lo += u[i].hi * z[j].lo + u[i].lo * z[j].hi;
+            ddouble pr = dd::two_prod(uh[i], zh[j]);
+            pr.lo += uh[i] * zl[j] + ul[i] * zh[j];
             sum2_add(g[e], pr.hi, pr.lo);
         }
 }
 
 template <bool Weighted>
 void add_to_gram_any(int k, ddouble* g, const double* o, const double* values, double w,
-                     ddouble* work) {
+                     double* work) {
     switch (k) {
     case 2: return add_to_gram<2, Weighted>(k, g, o, values, w, work);
     case 3: return add_to_gram<3, Weighted>(k, g, o, values, w, work);
@@ -513,8 +528,8 @@ void summary::add_row(std::size_t c, const double* values, double w) {
     ddouble* g = gram(c);
     if (n_[c] == 0)  // the cell's first row
         for (int j = 0; j <= p_; ++j) o[j] = values[j];
-    if (weighted_) add_to_gram_any<true>(k, g, o, values, w, scratch_.data());
-    else add_to_gram_any<false>(k, g, o, values, w, scratch_.data());
+    if (weighted_) add_to_gram_any<true>(k, g, o, values, w, row_scratch_.data());
+    else add_to_gram_any<false>(k, g, o, values, w, row_scratch_.data());
     if (++n_[c] % renormalise_every == 0) normalise(g, stride());
     ++total_;
     if (weighted_) log_w_[c] += std::log(w);

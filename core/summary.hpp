@@ -282,7 +282,8 @@ private:
     std::uint64_t last_word_ = 0;  // its slot key (see slot)
     std::uint32_t last_tag_ = 0;   // 0 until a cell has been found
     std::array<std::int64_t, drop_reason_count> dropped_{};
-    std::vector<ddouble> scratch_;  // 2(p+2): one row's z and w z, or a shift
+    std::vector<ddouble> scratch_;  // 2(p+2): a merge's shift and moved first row
+    std::vector<double> row_scratch_;  // 4(p+2): a row's z and w z, high and low parts (p > 4)
 };
 
 }  // namespace groupfit

@@ -8,6 +8,9 @@
 //                        way the aggregate does) + summary::add_row, per row, for
 //                        p covariates and L levels; rows pre-generated, levels in
 //                        random order; items_per_second = rows per second.
+//   BM_RowBatch/p/L      the same rows through row_batch + summary::add_batch
+//                        (the aggregate's path once the levels' state passes
+//                        256 KiB).
 //   BM_Merge             summary::merge of 1,000 models (100 levels, 2
 //                        covariates each) into one empty model.
 //   BM_MergeBlobs        the same from serialized BLOBs (the first decoded, the
@@ -152,6 +155,33 @@ void BM_RowUpdate(benchmark::State& state) {
     state.counters["cells"] = static_cast<double>(s.cells());
 }
 BENCHMARK(BM_RowUpdate)
+    ->ArgNames({"p", "levels"})
+    ->ArgsProduct({{0, 2, 8}, {4, 100, 10000}});
+
+// The same rows through row_batch + summary::add_batch, the path the aggregate
+// takes once the levels' state passes 256 KiB (summary::wants_batches).
+void BM_RowBatch(benchmark::State& state) {
+    const int p = static_cast<int>(state.range(0));
+    const auto levels = static_cast<std::size_t>(state.range(1));
+    const std::size_t n = 1u << 16;
+    const rows_data d = make_rows(n, p, levels, 7);
+    const limits lim = big_limits();
+    summary s(p, false);
+    groupfit::row_batch b(p);
+    const std::size_t w = p + 1;
+    std::size_t i = 0;
+    for (auto _ : state) {
+        const std::string& key = d.labels[d.level[i]];
+        b.push(level_kind::text, key.data(), key.size(), &d.values[i * w], 1.0);
+        if (b.full()) s.add_batch(b, lim);
+        if (++i == n) i = 0;
+    }
+    s.add_batch(b, lim);
+    benchmark::DoNotOptimize(s.rows_used());
+    state.SetItemsProcessed(state.iterations());
+    state.counters["cells"] = static_cast<double>(s.cells());
+}
+BENCHMARK(BM_RowBatch)
     ->ArgNames({"p", "levels"})
     ->ArgsProduct({{0, 2, 8}, {4, 100, 10000}});
 

@@ -441,6 +441,8 @@ std::vector<scenario> scenarios() {
     // allocations; more levels or two sides take many more.
     const std::string m2 = "(SELECT groupfit(y, g, x) FROM t WHERE g IN ('a', 'b'))";
     const std::size_t after_setup = setup().size();
+    std::string covariates32;  // ", x + 0, x + 1, ..., x + 31"
+    for (int k = 0; k < 32; ++k) covariates32 += ", x + " + std::to_string(k);
     // Loading the module, creating and filling the table are swept in the
     // aggregate scenarios; the report scenarios fail only their own statements.
     auto all_armed = [](std::vector<std::string> tail) {
@@ -467,6 +469,17 @@ std::vector<scenario> scenarios() {
                     "SELECT groupfit_merge(wm) FROM (SELECT wm FROM parts ORDER BY seg DESC)",
                     "SELECT groupfit_merge(m) FROM (SELECT NULL AS m UNION ALL SELECT m FROM parts)"}),
          0},
+        // The batched row path (summary::add_batch): with 32 covariates a
+        // level's state is 9.5 KiB, so the aggregate switches to batches after
+        // 28 levels; 40 levels of more than 8 bytes, 100 rows (a partial
+        // batch left for the final step). Only the aggregate statement is armed.
+        {"batch",
+         with_setup({"DROP TABLE IF EXISTS b",
+                     "CREATE TABLE b AS WITH RECURSIVE c(i) AS (SELECT 0 UNION ALL SELECT i + 1 FROM c "
+                     "WHERE i < 99) SELECT 'level-' || (i % 40) AS g, i % 7 + 0.5 * (i % 40) AS y, "
+                     "(i * 13 % 17) / 4.0 AS x FROM c",
+                     "SELECT hex(groupfit(y, g" + covariates32 + ")) FROM b"}),
+         after_setup + 2},
         {"coef",
          with_setup({"SELECT * FROM groupfit_coef(" + m + ")",
                      "SELECT * FROM groupfit_coef(" + m + ", 'coding=effect; names=grp, x; conf=0.9')",

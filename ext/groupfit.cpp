@@ -199,6 +199,7 @@ inline bool numeric_arg(sqlite3_value* v, const char* role, int covariate, int p
 ** only frees it. */
 struct agg_state {
     summary* s;
+    const groupfit::limits* lim;  // the connection's (groupfit and groupfit_weighted)
     groupfit::row_batch* batch;  // rows not yet added (models with many levels)
     bool failed;
 };
@@ -234,12 +235,17 @@ void fit_step(sqlite3_context* ctx, int argc, sqlite3_value** argv, bool weighte
             throw groupfit::error("needs at least (weight, response, grouping)");
         if (argc < lead) throw groupfit::error("needs at least (response, grouping)");
         const int p = argc - lead;
-        const auto& lim = config_of(ctx)->lim;
-        if (p > lim.max_covariates)
-            throw groupfit::error("too many covariates: " + std::to_string(p) + " given, the limit is " +
-                                  std::to_string(lim.max_covariates));
-        if (!st.s) st.s = new summary(p, weighted);
+        if (!st.s) {
+            // The connection's limits as the aggregate starts (kept for its rows).
+            const auto& l = config_of(ctx)->lim;
+            if (p > l.max_covariates)
+                throw groupfit::error("too many covariates: " + std::to_string(p) +
+                                      " given, the limit is " + std::to_string(l.max_covariates));
+            st.lim = &l;
+            st.s = new summary(p, weighted);
+        }
         summary& s = *st.s;
+        const auto& lim = *st.lim;
         if (s.covariates() != p)
             throw groupfit::error("the number of covariates changed between rows");
 

@@ -313,8 +313,6 @@ engine::engine(const summary& sm, const options& opt, int crossed) : s(sm), o(op
         for (cell& c : cells) c.m.push_back(s.cell_mean_from(c.sc, j, origin).value());
         if (j < p) ox[j] = origin; else oy = origin;
     }
-    H.clear();
-    for (int k = 0; k < K; ++k) H.push_back(helmert_basis(lv[k].size()));
 
     // The terms.
     std::vector<unsigned> masks;
@@ -346,6 +344,10 @@ engine::engine(const summary& sm, const options& opt, int crossed) : s(sm), o(op
         throw error("the model has " + std::to_string(ncols) + " design columns; the limit is " +
                     std::to_string(max_design_columns) +
                     " (use terms=main or terms=two_way, or fewer levels)");
+    // Each factor's Helmert basis is dense (levels x (levels - 1)): made only
+    // once the design is known to be within the limit.
+    H.clear();
+    for (int k = 0; k < K; ++k) H.push_back(helmert_basis(lv[k].size()));
 
     build_design();
     std::vector<std::size_t> all(ncols);
@@ -798,17 +800,15 @@ homogeneity slopes_test(const engine& small) {
 
 }  // namespace
 
-std::vector<value> slopes_homogeneity_row(const summary& s, const options& o) {
+std::vector<value> slopes_homogeneity_row(const fit& f) {
+    const summary& s = f.data();
     if (s.covariates() == 0) return {};
-    options plain = o;
-    plain.order.clear();
-    plain.has_terms = false;
-    const engine e(s, plain, 0);
     // With one factor, slopes by level are slopes by cell: the separate-slopes
     // model's residual is the sum of the cells' own residuals of y on the
     // covariates, which the cell factors already hold (the last D entry), and
     // its rank counts each cell's intercept and non-degenerate covariates.
-    // O(cells x p) instead of a QR over cells x p columns.
+    // The common-slopes model is the fit itself. O(cells x p^2), no design
+    // matrix (so 10,000 levels cost what 100 do, per level).
     homogeneity h;
     const int k = s.width();
     double sse_sep = 0.0;
@@ -828,15 +828,14 @@ std::vector<value> slopes_homogeneity_row(const summary& s, const options& o) {
         }
         sse_sep += d[k - 1].value();
     }
-    h.df = double(rank_sep - e.full.rank);
-    h.nominal = double(e.p) * double(s.cells() - 1);
-    h.ss = std::max(0.0, e.full.sse - sse_sep);
+    const int p = f.covariates();
+    h.df = double(rank_sep - f.rank());
+    h.nominal = double(p) * double(s.cells() - 1);
+    h.ss = std::max(0.0, f.sse() - sse_sep);
     h.sse = sse_sep;
-    h.dfr = double(e.n) - rank_sep;
-    std::string name = e.fname[0] + " \u00d7 " + (e.p == 1 ? e.cname[0] : std::string("covariates"));
-    std::vector<value> row = test_row(name, "homogeneity_of_slopes", 0, h.df, h.nominal, h.ss,
-                                      h.sse, h.dfr, e.ss_total());
-    return row;
+    h.dfr = double(f.rows()) - rank_sep;
+    std::string name = f.group_name() + " \u00d7 " + (p == 1 ? f.covariate_name(0) : std::string("covariates"));
+    return test_row(name, "homogeneity_of_slopes", 0, h.df, h.nominal, h.ss, h.sse, h.dfr, f.ss_total());
 }
 
 table cross_tests_report(const summary& s, const options& o) {

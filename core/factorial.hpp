@@ -69,7 +69,8 @@ table cross_contrast_report(const summary& s, const options& o, std::string_view
 
 /// The homogeneity-of-slopes test of a one-factor model with covariates (the
 /// grouping-by-covariate interaction), as a row of tests_columns(); empty
-/// without covariates.
-std::vector<value> slopes_homogeneity_row(const summary& s, const options& o);
+/// without covariates. From the fit (the common-slopes model) and its summary's
+/// cell factors; no design matrix.
+std::vector<value> slopes_homogeneity_row(const fit& f);
 
 }  // namespace groupfit

@@ -225,7 +225,7 @@ table tests_report(const fit& f) {
     for (auto& row : t.rows) row.resize(t.columns.size());
     // The grouping-by-covariate interaction: do the slopes differ by level?
     if (f.covariates() > 0 && f.levels() > 1) {
-        std::vector<value> h = slopes_homogeneity_row(f.data(), f.opts());
+        std::vector<value> h = slopes_homogeneity_row(f);
         auto at = std::find_if(t.rows.begin(), t.rows.end(), [](const std::vector<value>& r) {
             const auto* term = std::get_if<std::string>(&r[0]);
             return term && (*term == "model" || *term == "residual");

@@ -1772,6 +1772,40 @@ TEST(Scale, ManyLevelsGoThroughBatchesWithTheSameResults) {
               "every row a groupfit_cross of the same factors");
 }
 
+// Reports on a one-factor model with thousands of levels need no dense design:
+// the homogeneity-of-slopes row of groupfit_tests comes from the fit and the
+// levels' own factors, and a report that would need a design past the column
+// limit (slopes=separate) says so before it allocates one. Reference: the
+// one-covariate formulas from per-level sums (common practice): separate
+// slopes SSE = sum over levels of Syy - Sxy^2 / Sxx; common slope SSE = sum Syy
+// - (sum Sxy)^2 / sum Sxx; F = ((SSEc - SSEs) / (L - 1)) / (SSEs / (n - 2L)).
+TEST(Scale, ManyLevelsTestsNeedNoDenseDesign) {
+    database db;
+    db.exec("CREATE TABLE h(g INTEGER, y REAL, x REAL)");
+    db.exec("WITH RECURSIVE c(i) AS (SELECT 0 UNION ALL SELECT i + 1 FROM c WHERE i < 29999) "
+            "INSERT INTO h SELECT i % 6000, (i * 7919 % 1009) / 100.0 + (i % 6000) * (i % 13) / 1000.0, "
+            "(i * 104729 % 997) / 100.0 + (i % 11) FROM c");
+    db.exec("CREATE TEMP TABLE hm(g INTEGER PRIMARY KEY, mx REAL, my REAL)");
+    db.exec("INSERT INTO hm SELECT g, avg(x), avg(y) FROM h GROUP BY g");
+    auto ref = db.query(
+        "WITH s AS (SELECT g, sum((x - mx) * (x - mx)) sxx, sum((x - mx) * (y - my)) sxy, "
+        "sum((y - my) * (y - my)) syy FROM h JOIN hm USING (g) GROUP BY g) "
+        "SELECT sum(syy - sxy * sxy / sxx), sum(syy) - sum(sxy) * sum(sxy) / sum(sxx), count(*) FROM s");
+    const double sse_sep = ref.rows[0][0].d, sse_common = ref.rows[0][1].d;
+    const double levels = double(ref.rows[0][2].i), n = 30000;
+    auto t = db.query("SELECT df, df_denom, sum_sq, f_stat FROM groupfit_tests((SELECT groupfit(y, g, x) "
+                      "FROM h)) WHERE method = 'homogeneity_of_slopes'");
+    ASSERT_EQ(t.rows.size(), 1u);
+    EXPECT_EQ(t.rows[0][0].d, levels - 1);
+    EXPECT_EQ(t.rows[0][1].d, n - 2 * levels);
+    EXPECT_TRUE(close(t.rows[0][2].d, sse_common - sse_sep, 1e-9));
+    const double f = ((sse_common - sse_sep) / (levels - 1)) / (sse_sep / (n - 2 * levels));
+    EXPECT_TRUE(close(t.rows[0][3].d, f, 1e-9)) << t.rows[0][3].d << " vs " << f;
+    EXPECT_EQ(db.error("SELECT * FROM groupfit_tests((SELECT groupfit(y, g, x) FROM h), 'slopes=separate')"),
+              "groupfit_tests: the model has 12000 design columns; the limit is 4000 (use terms=main or "
+              "terms=two_way, or fewer levels)");
+}
+
 // A merge over models of mismatched shape inside a GROUP BY fails for the
 // segment that mixes them, with the shape named.
 TEST(Scale, MismatchedMergeInsideGroupByIsAnError) {

@@ -292,17 +292,26 @@ estimate fit::evaluate(const linear_function& f) const {
         }
     }
     // The value in double-double: large intercept offsets cancel exactly.
+    // One pass over the levels that the function touches (most report rows
+    // touch two: O(levels) to find them, O(p) each), for the value, D'a and
+    // sum a_i^2 / W_i.
     ddouble v = f.c;
-    for (Eigen::Index i = 0; i < f.a.size(); ++i)
-        if (f.a[i] != 0.0) v += mud_[i] * f.a[i];
-    Eigen::VectorXd u = d_prime_a(f.a);
+    Eigen::VectorXd u = Eigen::VectorXd::Zero(static_cast<Eigen::Index>(kept_.size()));
+    double aw = 0.0;
+    for (Eigen::Index i = 0; i < f.a.size(); ++i) {
+        const double ai = f.a[i];
+        if (ai == 0.0) continue;
+        v += mud_[i] * ai;
+        aw += ai * ai / w_[i];
+        for (std::size_t b = 0; b < kept_.size(); ++b) u[b] += xb_(i, kept_[b]) * ai;
+    }
     for (std::size_t b = 0; b < kept_.size(); ++b) {
         v += betad_[kept_[b]] * f.g[kept_[b]];
         u[b] -= f.g[kept_[b]];
     }
     e.value = v.value();
     const double s2 = sigma2();
-    if (!std::isnan(s2)) e.std_error = std::sqrt(s2 * (f.a.cwiseAbs2().cwiseQuotient(w_).sum() + g_quadratic(u)));
+    if (!std::isnan(s2)) e.std_error = std::sqrt(s2 * (aw + g_quadratic(u)));
     return e;
 }
 
@@ -325,6 +334,41 @@ estimate fit::level_mean_at(std::size_t i, const Eigen::VectorXd& at) const {
     const double s2 = sigma2();
     if (!std::isnan(s2)) e.std_error = std::sqrt(s2 * (1.0 / w_[i] + g_quadratic(u)));
     return e;
+}
+
+std::vector<estimate> fit::deviations_from(const Eigen::VectorXd& w) const {
+    const std::size_t L = levels();
+    std::vector<estimate> out;
+    out.reserve(L);
+    const Eigen::VectorXd zero = Eigen::VectorXd::Zero(p_);
+    if (std::find(alias_.begin(), alias_.end(), true) != alias_.end()) {
+        for (std::size_t i = 0; i < L; ++i) {
+            Eigen::VectorXd k = -w;
+            k[i] += 1.0;
+            out.push_back(evaluate(level_combination(k, zero)));
+        }
+        return out;
+    }
+    // a = e_i - w: sum_j a_j mu_j = mu_i - m with m = sum_j w_j mu_j (double-
+    // double, once); D'a = xbar_i - D'w; sum_j a_j^2 / W_j = q + (1 - 2 w_i) / W_i
+    // with q = sum_j w_j^2 / W_j.
+    ddouble m = 0.0;
+    double q = 0.0;
+    for (std::size_t j = 0; j < L; ++j) {
+        if (w[j] != 0.0) m += mud_[j] * w[j];
+        q += w[j] * w[j] / w_[j];
+    }
+    const Eigen::VectorXd dw = d_prime_a(w);
+    const double s2 = sigma2();
+    Eigen::VectorXd u(kept_.size());
+    for (std::size_t i = 0; i < L; ++i) {
+        for (std::size_t b = 0; b < kept_.size(); ++b) u[b] = xb_(i, kept_[b]) - dw[b];
+        estimate e{(mud_[i] - m).value(), nan, true};
+        if (!std::isnan(s2))
+            e.std_error = std::sqrt(s2 * (std::max(0.0, q + (1.0 - 2.0 * w[i]) / w_[i]) + g_quadratic(u)));
+        out.push_back(e);
+    }
+    return out;
 }
 
 Eigen::VectorXd fit::covariance_loading(const linear_function& f) const {

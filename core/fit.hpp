@@ -91,6 +91,12 @@ public:
     /// The adjusted mean of level i at covariates `at` (raw scale): the same as
     /// evaluate(level_combination(e_i, at)) in O(p^2) instead of O(levels).
     estimate level_mean_at(std::size_t i, const Eigen::VectorXd& at) const;
+    /// For every level i, the estimate of mu_i - sum_j w_j mu_j (w: weights
+    /// over levels, summing to 1; the difference needs no covariate value):
+    /// evaluate(level_combination(e_i - w, any)) for all i at once, in
+    /// O(levels p^2) instead of O(levels^2) (the general evaluate when a
+    /// covariate is aliased).
+    std::vector<estimate> deviations_from(const Eigen::VectorXd& w) const;
     /// Covariance of two linear functions divided by sigma^2.
     double scaled_covariance(const linear_function& f1, const linear_function& f2) const;
     /// The covariate part of that covariance as a loading vector z (over the

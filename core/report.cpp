@@ -2,6 +2,7 @@
 
 #include <algorithm>
 #include <cmath>
+#include <limits>
 
 #include "coding.hpp"
 #include "factorial.hpp"
@@ -18,7 +19,15 @@ value text(std::string s) { return value{std::move(s)}; }
 /// estimate, std_error, t_stat, df, p_value, ci_lower, ci_upper for one estimate.
 void inference(std::vector<value>& row, const estimate& e, double df, double conf) {
     const double t = e.value / e.std_error;
-    const double q = dist::t_quantile(1.0 - (1.0 - conf) / 2.0, df);
+    // A report's rows share df and conf: the quantile of the previous call is
+    // reused (per thread; a NaN df never matches and is recomputed).
+    thread_local double last_df = std::numeric_limits<double>::quiet_NaN(), last_conf = 0, last_q = 0;
+    if (!(df == last_df && conf == last_conf)) {
+        last_q = dist::t_quantile(1.0 - (1.0 - conf) / 2.0, df);
+        last_df = df;
+        last_conf = conf;
+    }
+    const double q = last_q;
     row.push_back(num(e.value));
     row.push_back(num(e.std_error));
     row.push_back(num(t));
@@ -129,16 +138,15 @@ table levels_report(const fit& f) {
 table deviations_report(const fit& f) {
     table t{deviations_columns(), {}};
     const std::size_t L = f.levels();
-    const Eigen::VectorXd zero = Eigen::VectorXd::Zero(f.covariates());
     Eigen::VectorXd weights(L);
     for (std::size_t i = 0; i < L; ++i) weights[i] = f.level_weight(i);
     weights /= weights.sum();
     const Eigen::VectorXd uniform = Eigen::VectorXd::Constant(L, 1.0 / double(L));
+    const std::vector<estimate> from_uniform = f.deviations_from(uniform);
+    const std::vector<estimate> from_weights = f.deviations_from(weights);
     for (std::size_t i = 0; i < L; ++i) {
         for (int ref = 0; ref < 2; ++ref) {
-            Eigen::VectorXd k = -(ref == 0 ? uniform : weights);
-            k[i] += 1.0;
-            const estimate e = f.evaluate(f.level_combination(k, zero));
+            const estimate& e = ref == 0 ? from_uniform[i] : from_weights[i];
             std::vector<value> row = make_row(text(f.level_label(i)),
                                               text(ref == 0 ? "unweighted mean of level means"
                                                             : "weighted mean of level means"));

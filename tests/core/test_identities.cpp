@@ -242,3 +242,44 @@ TEST(Identities, CollinearCovariateIsAliasedNotGuessed) {
     EXPECT_TRUE(std::holds_alternative<std::monostate>(coef.rows.back()[col(coef, "estimate")]));
     EXPECT_FALSE(std::isnan(num(coef.rows[1][col(coef, "estimate")])));
 }
+
+// Common practice: a level's deviation from the unweighted mean of level
+// means is its effect-coded coefficient (whose values and standard errors are
+// checked against R's lm in test_oracle); and the all-levels-at-once
+// deviations (fit::deviations_from, O(levels p^2)) equal the general
+// evaluate of each level's linear function, with covariates, unequal sizes,
+// and with an aliased covariate (which takes the general path).
+TEST(Identities, DeviationsEqualEffectCodingAndTheGeneralEvaluate) {
+    for (const int p : {0, 2}) {
+        const auto rows = random_rows(21 + p, 500, p, 7, false);
+        const summary s = build(rows, p);
+        const fit f(s, parse_options("coding=effect"));
+        const table coef = coef_report(f);
+        const table dev = deviations_report(f);
+        const int est = col(coef, "estimate"), se = col(coef, "std_error");
+        for (std::size_t i = 0; i + 1 < f.levels(); ++i) {
+            expect_close(num(dev.rows[2 * i][col(dev, "estimate")]), num(coef.rows[i + 1][est]), 1e-12,
+                         "deviation vs effect coefficient");
+            expect_close(num(dev.rows[2 * i][col(dev, "std_error")]), num(coef.rows[i + 1][se]), 1e-12,
+                         "deviation SE vs effect coefficient SE");
+        }
+    }
+    // An aliased covariate (x2 = 2 x1) and a weighted reference.
+    std::vector<data_row> rows = random_rows(31, 400, 1, 5, false);
+    for (auto& r : rows) r.v.insert(r.v.begin() + 1, 2.0 * r.v[0]);
+    for (const auto& data : {random_rows(32, 400, 2, 5, false), rows}) {
+        const summary s = build(data, 2);
+        const fit f(s, parse_options(""));
+        Eigen::VectorXd w(f.levels());
+        for (std::size_t i = 0; i < f.levels(); ++i) w[i] = f.level_weight(i);
+        w /= w.sum();
+        const std::vector<estimate> fast = f.deviations_from(w);
+        for (std::size_t i = 0; i < f.levels(); ++i) {
+            Eigen::VectorXd k = -w;
+            k[i] += 1.0;
+            const estimate e = f.evaluate(f.level_combination(k, Eigen::VectorXd::Zero(2)));
+            expect_close(fast[i].value, e.value, 1e-12, "deviation value");
+            expect_close(fast[i].std_error, e.std_error, 1e-12, "deviation SE");
+        }
+    }
+}

@@ -135,32 +135,10 @@ limits big_limits() {
 
 // ------------------------------------------------------------------ row update
 
-void BM_RowUpdate(benchmark::State& state) {
-    const int p = static_cast<int>(state.range(0));
-    const auto levels = static_cast<std::size_t>(state.range(1));
-    const std::size_t n = 1u << 16;
-    const rows_data d = make_rows(n, p, levels, 7);
-    const limits lim = big_limits();
-    summary s(p, false);
-    const std::size_t w = p + 1;
-    std::size_t i = 0;
-    for (auto _ : state) {
-        const std::string& key = d.labels[d.level[i]];
-        const std::size_t c = s.cell_for(level_kind::text, key.data(), key.size(), lim);
-        s.add_row(c, &d.values[i * w], 1.0);
-        if (++i == n) i = 0;
-    }
-    benchmark::DoNotOptimize(s.rows_used());
-    state.SetItemsProcessed(state.iterations());
-    state.counters["cells"] = static_cast<double>(s.cells());
-}
-BENCHMARK(BM_RowUpdate)
-    ->ArgNames({"p", "levels"})
-    ->ArgsProduct({{0, 2, 8}, {4, 100, 10000}});
-
-// The same rows through row_batch + summary::add_batch, the path the aggregate
-// takes once the levels' state passes 256 KiB (summary::wants_batches).
-void BM_RowBatch(benchmark::State& state) {
+// Batched: the rows go through row_batch + summary::add_batch, the path the
+// aggregate takes once the levels' state passes 256 KiB (wants_batches).
+template <bool Batched>
+void rows_benchmark(benchmark::State& state) {
     const int p = static_cast<int>(state.range(0));
     const auto levels = static_cast<std::size_t>(state.range(1));
     const std::size_t n = 1u << 16;
@@ -172,15 +150,24 @@ void BM_RowBatch(benchmark::State& state) {
     std::size_t i = 0;
     for (auto _ : state) {
         const std::string& key = d.labels[d.level[i]];
-        b.push(level_kind::text, key.data(), key.size(), &d.values[i * w], 1.0);
-        if (b.full()) s.add_batch(b, lim);
+        if constexpr (Batched) {
+            b.push(level_kind::text, key.data(), key.size(), &d.values[i * w], 1.0);
+            if (b.full()) s.add_batch(b, lim);
+        } else {
+            s.add_row(s.cell_for(level_kind::text, key.data(), key.size(), lim), &d.values[i * w], 1.0);
+        }
         if (++i == n) i = 0;
     }
-    s.add_batch(b, lim);
+    if (Batched) s.add_batch(b, lim);
     benchmark::DoNotOptimize(s.rows_used());
     state.SetItemsProcessed(state.iterations());
     state.counters["cells"] = static_cast<double>(s.cells());
 }
+void BM_RowUpdate(benchmark::State& state) { rows_benchmark<false>(state); }
+void BM_RowBatch(benchmark::State& state) { rows_benchmark<true>(state); }
+BENCHMARK(BM_RowUpdate)
+    ->ArgNames({"p", "levels"})
+    ->ArgsProduct({{0, 2, 8}, {4, 100, 10000}});
 BENCHMARK(BM_RowBatch)
     ->ArgNames({"p", "levels"})
     ->ArgsProduct({{0, 2, 8}, {4, 100, 10000}});

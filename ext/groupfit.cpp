@@ -337,7 +337,7 @@ void model_final(sqlite3_context* ctx, const char* fn) noexcept {
     if (st && st->failed) return;
     if (!s) return sqlite3_result_null(ctx);
     guarded(ctx, fn, [&] {
-        if (batch && !batch->empty()) s->add_batch(*batch, config_of(ctx)->lim, check_new_cell);
+        if (batch && !batch->empty()) s->add_batch(*batch, *st->lim, check_new_cell);
         batch.reset();
         // Written straight into SQLite's buffer, which SQLite then owns; the
         // summary is freed first, so memory never holds it and two BLOBs.

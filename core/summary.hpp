@@ -108,8 +108,6 @@ public:
     static constexpr int capacity = 16;
     explicit row_batch(int covariates)
         : p_(covariates), values_(static_cast<std::size_t>(capacity) * (covariates + 1)) {}
-    int covariates() const { return p_; }
-    int size() const { return n_; }
     bool empty() const { return n_ == 0; }
     bool full() const { return n_ == capacity; }
     /// Copies a row: its level as raw bytes (as summary::cell_for takes them),
@@ -155,17 +153,17 @@ public:
     /// the aggregate: the last level seen is compared before any hashing.
     std::size_t cell_for(level_kind kind, const void* data, std::size_t len, const limits& lim);
 
-    /// Adds the rows of a batch in their order, with the same result, bit for
-    /// bit, as cell_for and add_row row by row; `on_new_cell` (when given) is
-    /// called with each cell the batch creates, before any of its rows is
-    /// added, and may throw. Throws like cell_for and add_row; after a throw
-    /// the summary is unspecified. The batch is emptied either way.
     /// Whether rows should go through add_batch: when the cells' matrices
     /// outgrow what the CPU caches near the core hold (256 KiB; the levels'
     /// state, (p+2)(p+3)/2 double-doubles per cell), so that rows mostly wait
     /// for memory. Below that, a row at a time is faster.
     bool wants_batches() const { return cells() * stride() * sizeof(ddouble) > (256u << 10); }
     using new_cell_hook = void (*)(void* context, const summary& s, std::size_t cell);
+    /// Adds the rows of a batch in their order, with the same result, bit for
+    /// bit, as cell_for and add_row row by row; `on_new_cell` (when given) is
+    /// called with each cell the batch creates, before any of its rows is
+    /// added, and may throw. Throws like cell_for and add_row; after a throw
+    /// the summary is unspecified. The batch is emptied either way.
     void add_batch(row_batch& batch, const limits& lim, new_cell_hook on_new_cell = nullptr,
                    void* context = nullptr);
 

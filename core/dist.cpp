@@ -26,8 +26,15 @@ double t_two_sided_p(double t, double df) {
 
 double t_quantile(double q, double df) {
     if (!(df > 0) || !(q > 0 && q < 1)) return nan;
+    // A report asks for the same quantile row after row (inference): the last
+    // one is kept, per thread.
+    thread_local double last_q = nan, last_df = nan, last = nan;
+    if (q == last_q && df == last_df) return last;
     bm::students_t_distribution<double, policy> d(df);
-    return bm::quantile(d, q);
+    last = bm::quantile(d, q);
+    last_q = q;
+    last_df = df;
+    return last;
 }
 
 double f_upper_p(double f, double df1, double df2) {

@@ -2,7 +2,6 @@
 
 #include <algorithm>
 #include <cmath>
-#include <limits>
 
 #include "coding.hpp"
 #include "factorial.hpp"
@@ -19,15 +18,7 @@ value text(std::string s) { return value{std::move(s)}; }
 /// estimate, std_error, t_stat, df, p_value, ci_lower, ci_upper for one estimate.
 void inference(std::vector<value>& row, const estimate& e, double df, double conf) {
     const double t = e.value / e.std_error;
-    // A report's rows share df and conf: the quantile of the previous call is
-    // reused (per thread; a NaN df never matches and is recomputed).
-    thread_local double last_df = std::numeric_limits<double>::quiet_NaN(), last_conf = 0, last_q = 0;
-    if (!(df == last_df && conf == last_conf)) {
-        last_q = dist::t_quantile(1.0 - (1.0 - conf) / 2.0, df);
-        last_df = df;
-        last_conf = conf;
-    }
-    const double q = last_q;
+    const double q = dist::t_quantile(1.0 - (1.0 - conf) / 2.0, df);
     row.push_back(num(e.value));
     row.push_back(num(e.std_error));
     row.push_back(num(t));
